@@ -1,0 +1,5 @@
+import sys
+
+from fracto.cli import main
+
+sys.exit(main())
