@@ -78,7 +78,9 @@ def parse_length_um(text: str | float, *, what: str = "length", positive: bool =
         raise FractoInputError(f"The {what} needs a unit, for example '0.5um' or '250nm'.")
     m = _NUMBER_UNIT.match(str(text))
     if not m:
-        raise FractoInputError(f"Cannot read the {what} '{text}'; write it like '0.5um' or '250nm'.")
+        raise FractoInputError(
+            f"Cannot read the {what} '{text}'; write it like '0.5um' or '250nm'."
+        )
     number, unit = m.groups()
     if not unit:
         raise FractoInputError(

@@ -37,7 +37,9 @@ def atomic_write(path: str | os.PathLike, mode: str = "wb", **kwargs: Any) -> It
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=folder)
     except PermissionError as exc:
-        raise FractoInputError(f"Cannot write into the folder '{folder}': permission denied.") from exc
+        raise FractoInputError(
+            f"Cannot write into the folder '{folder}': permission denied."
+        ) from exc
     try:
         with os.fdopen(fd, mode, **kwargs) as fh:
             yield fh
