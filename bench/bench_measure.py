@@ -11,6 +11,7 @@ Run: ``python bench/bench_measure.py [--sizes 1024,2048,4096] [--repeat 1]``
 from __future__ import annotations
 
 import argparse
+import itertools
 import time
 import tracemalloc
 
@@ -76,7 +77,7 @@ def main() -> None:
             print(f"    {g:<13} {tg:7.2f} s  {tg / t_fft:7.1f}×")
     if len(rows) > 1:
         print("\ngrowth of the full run with size (time ratio per 4× pixels):")
-        for (n0, _, t0, _), (n1, _, t1, _) in zip(rows, rows[1:], strict=False):
+        for (n0, _, t0, _), (n1, _, t1, _) in itertools.pairwise(rows):
             print(f"  {n0}² → {n1}²: {t1 / t0:.2f}× for {(n1 / n0) ** 2:.0f}× the pixels")
 
 

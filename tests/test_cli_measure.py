@@ -84,7 +84,7 @@ def test_table_output(capsys, sine_npy):
 def test_bad_input_exit_2_one_sentence(capsys, tmp_path, make):
     path = tmp_path / "bad.npy"
     make(path)
-    code, out, err = run(capsys, "measure", str(path))
+    code, _out, err = run(capsys, "measure", str(path))
     assert code == 2
     assert "Traceback" not in err and err.count("\n") == 1
 
