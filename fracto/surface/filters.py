@@ -283,8 +283,9 @@ def remove_spikes(
     neighbourhood by more than `threshold` robust σ, σ being 1.4826 × the
     median absolute deviation of those differences over the map. This local
     median test is common practice for optical height maps (no standard
-    prescribes it). Non-measured neighbours are filled with the nearest
-    measured height before the median is taken; they stay NaN.
+    prescribes it). Only measured neighbours enter the median (see the code
+    comment for how); points with fewer than ``size²//2 + 1`` measured
+    neighbours are not judged.
 
     Parameters
     ----------
@@ -319,18 +320,28 @@ def remove_spikes(
     if valid.sum() < size * size:
         return out, 0
     if valid.all():
-        filled = z
+        med = ndimage.median_filter(z, size=int(size), mode="nearest")
     else:
-        idx = ndimage.distance_transform_edt(~valid, return_distances=False, return_indices=True)
-        filled = z[tuple(idx)]
-        del idx
-    med = ndimage.median_filter(filled, size=int(size), mode="nearest")
-    np.subtract(z, med, out=med)  # residual, NaN where not measured
-    r = med[valid]
+        # Median over the measured neighbours only: with the k missing ones set to
+        # +inf the window median is the valid value of rank (h+1), with -inf that of
+        # rank (h+1-k), h = size²//2; their mean is the median of the valid values for
+        # k <= 1 and a symmetric central estimate for larger k. Windows with fewer
+        # than h+1 measured points are not judged.
+        hi = ndimage.median_filter(np.where(valid, z, np.inf), size=int(size), mode="nearest")
+        lo = ndimage.median_filter(np.where(valid, z, -np.inf), size=int(size), mode="nearest")
+        with np.errstate(invalid="ignore"):
+            med = 0.5 * (hi + lo)
+        del hi, lo
+        med[~np.isfinite(med)] = np.nan
+    np.subtract(z, med, out=med)  # residual, NaN where not measured or not judged
+    judged = np.isfinite(med)
+    r = med[judged]
+    if r.size == 0:
+        return out, 0
     centre = np.median(r)
     sigma = 1.4826 * float(np.median(np.abs(r - centre)))
     if sigma == 0.0:
-        spikes = valid & (med != centre)
+        spikes = judged & (med != centre)
     else:
         with np.errstate(invalid="ignore"):
             spikes = np.abs(med - centre) > threshold * sigma

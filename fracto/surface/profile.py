@@ -12,9 +12,11 @@ Conventions (each one written here because the standards leave choices):
   span (common practice, from ISO 4288: the filter needs λc/2 of run-in and
   run-out).
 * Rz: mean over the sections of the largest peak-to-valley height in each
-  section. The evaluation length is split into `n_sampling` equal sections
-  (ISO 21920-2 calls their number the number of sections; 5 is the default of
-  ISO 4287/ISO 4288 and common practice).
+  section. Without a cutoff the evaluation length is split into `n_sampling`
+  equal sections (ISO 21920-2 calls their number the number of sections; 5
+  is the default of ISO 4287/ISO 4288 and common practice). With a cutoff the
+  sections are one cutoff long (sampling length = λc, ISO 4288, from memory)
+  and every whole section in the evaluation length is used.
 * RSm: mean width of the profile elements (a peak and the adjacent valley,
   i.e. the spacing of successive upward mean-line crossings). A part of the
   profile between two mean-line crossings counts only if its height is at
@@ -34,8 +36,8 @@ Conventions (each one written here because the standards leave choices):
 
 from __future__ import annotations
 
+import itertools
 import math
-import warnings
 
 import numpy as np
 from scipy import ndimage
@@ -179,7 +181,74 @@ def _rsm_rows(
     return out
 
 
-def _row_parameters(r: np.ndarray, dx: float, n_sampling: int) -> dict[str, np.ndarray]:
+def _rz_rows(
+    r: np.ndarray, valid: np.ndarray, dx: float, n_sampling: int, section_um: float | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Rz of every row and the section length (µm) used.
+
+    Sections start at each row's first measured point: `n_sampling` equal
+    parts of the measured span, or, with `section_um`, as many whole sections
+    of that length as fit (the rest of the span is left out of Rz).
+    All rows are handled at once: the (row, section) group of each sample is
+    non-decreasing in row-major order, so ufunc.reduceat gives every group's
+    extremes in one pass.
+    """
+    ny, n = r.shape
+    first, last = _span(valid)
+    span = np.maximum(last - first + 1, 0)
+    uniform = bool(np.all(first == first[0]) and np.all(span == span[0]))
+    rows_sec = slice(0, 1) if uniform else slice(None)  # one row stands for all
+    j = np.arange(n, dtype=np.int32)
+    rel = j[None, :] - first[rows_sec].astype(np.int32)[:, None]
+    if section_um is None:
+        n_sec = np.where(span > 0, n_sampling, 0)
+        sec = (rel.astype(np.int64) * n_sampling) // np.maximum(span[rows_sec], 1)[:, None]
+        section_len = span * dx / n_sampling
+    else:
+        length = max(1, round(section_um / dx))
+        n_sec = span // length
+        sec = rel // length
+        section_len = np.full(ny, length * dx, dtype=np.float64)
+    rz = np.full(ny, np.nan)
+    if uniform:
+        # Same sections on every row (the usual case): column slices; fmax/fmin
+        # skip non-measured points.
+        if n_sec[0] == 0:
+            return rz, section_len
+        bounds = [int(np.argmax(sec[0] == k)) for k in range(int(n_sec[0]))]
+        bounds.append(int(np.flatnonzero(sec[0] == n_sec[0] - 1)[-1]) + 1)
+        heights = np.stack(
+            [
+                np.fmax.reduce(r[:, a:b], axis=1) - np.fmin.reduce(r[:, a:b], axis=1)
+                for a, b in itertools.pairwise(bounds)
+            ],
+            axis=1,
+        )
+        ok = np.isfinite(heights)
+        cnt = ok.sum(axis=1)
+        has = cnt > 0
+        rz[has] = np.where(ok, heights, 0.0).sum(axis=1)[has] / cnt[has]
+        return rz, section_len
+    use = (rel >= 0) & (sec < n_sec[:, None]) & valid
+    if not use.any():
+        return rz, section_len
+    width = int(n_sec.max()) + 1
+    group = (np.arange(ny)[:, None] * width + sec)[use]
+    vals = r[use]
+    del sec, rel, use
+    starts = np.concatenate(([0], np.flatnonzero(np.diff(group)) + 1))
+    heights = np.maximum.reduceat(vals, starts) - np.minimum.reduceat(vals, starts)
+    rows = group[starts] // width
+    cnt = np.bincount(rows, minlength=ny)
+    tot = np.bincount(rows, weights=heights, minlength=ny)
+    has = cnt > 0
+    rz[has] = tot[has] / cnt[has]
+    return rz, section_len
+
+
+def _row_parameters(
+    r: np.ndarray, dx: float, n_sampling: int, section_um: float | None = None
+) -> dict[str, np.ndarray]:
     """Parameters of every row of a stack of roughness profiles (NaN = excluded)."""
     valid = np.isfinite(r)
     nv = valid.sum(axis=1).astype(np.float64)
@@ -209,38 +278,7 @@ def _row_parameters(r: np.ndarray, dx: float, n_sampling: int) -> dict[str, np.n
         del d, dv
     else:
         rdq = np.full(r.shape[0], np.nan)
-    # Rz over n_sampling equal sections of each row's measured span.
-    first, last = _span(valid)
-    span = (last - first + 1).astype(np.float64)
-    heights = np.full((r.shape[0], n_sampling), np.nan)
-    if np.all(first == first[0]) and np.all(last == last[0]):
-        # Same span on every row: the sections are column slices.
-        j = np.arange(first[0], last[0] + 1)
-        for k in range(n_sampling):
-            cols = j[(j - first[0]) * n_sampling // max(int(span[0]), 1) == k]
-            if cols.size == 0:
-                continue
-            block = r[:, cols[0] : cols[-1] + 1]
-            ok = np.isfinite(block).any(axis=1)
-            with np.errstate(invalid="ignore"), warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                heights[ok, k] = np.nanmax(block[ok], axis=1) - np.nanmin(block[ok], axis=1)
-    else:
-        j = np.arange(n)
-        sec = ((j[None, :] - first[:, None]) * n_sampling) // np.maximum(last - first + 1, 1)[
-            :, None
-        ]
-        for k in range(n_sampling):
-            mk = valid & (sec == k)
-            hi = np.where(mk, r0, -np.inf).max(axis=1)
-            lo = np.where(mk, r0, np.inf).min(axis=1)
-            ok = mk.any(axis=1)
-            heights[ok, k] = hi[ok] - lo[ok]
-        del sec
-    okz = np.isfinite(heights).any(axis=1)
-    rz = np.full(r.shape[0], np.nan)
-    rz[okz] = np.nanmean(heights[okz], axis=1)
-    section_len = span * dx / n_sampling
+    rz, section_len = _rz_rows(r, valid, dx, n_sampling, section_um)
     rsm = _rsm_rows(r, dx, RSM_HEIGHT_FRACTION * rz, RSM_WIDTH_FRACTION * section_len)
     out = {"Ra": ra, "Rq": rq, "Rz": rz, "Rsk": rsk, "Rku": rku, "RSm": rsm, "Rdq": rdq}
     for v in out.values():
@@ -268,7 +306,8 @@ def profile_parameters(
         profile minus its ISO 16610-21 mean line and half a cutoff is dropped
         at each end; otherwise only the least-squares line is removed.
     n_sampling : int
-        Number of sections for Rz (and the RSm width discrimination).
+        Number of sections for Rz (and the RSm width discrimination) when no
+        cutoff is given; with a cutoff the sections are λc long.
 
     Returns
     -------
@@ -290,7 +329,7 @@ def profile_parameters(
     if np.isfinite(p).sum() < MIN_VALID_POINTS:
         return dict.fromkeys(PROFILE_PARAMETERS, math.nan)
     r = _roughness_rows(p[None, :], dx, cutoff_um)
-    res = _row_parameters(r, dx, int(n_sampling))
+    res = _row_parameters(r, dx, int(n_sampling), cutoff_um)
     return {k: float(res[k][0]) for k in PROFILE_PARAMETERS}
 
 
@@ -410,7 +449,7 @@ def areal_profile_parameters(
     for prof, h in blocks:
         r = _roughness_rows(prof, h, cutoff_um)
         length = np.isfinite(r).sum(axis=1).astype(np.float64)
-        res = _row_parameters(r, h, int(n_sampling))
+        res = _row_parameters(r, h, int(n_sampling), cutoff_um)
         for k in PROFILE_PARAMETERS:
             ok = np.isfinite(res[k])
             sums[k] += float(res[k][ok] @ length[ok])
