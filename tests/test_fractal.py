@@ -206,3 +206,22 @@ def test_fit_range_is_respected():
 def test_bad_input_raises(call):
     with pytest.raises(FractoInputError):
         call()
+
+
+def test_cube_counts_match_a_direct_loop_over_boxes():
+    # Independent implementation of the definition (REFERENCES.md trap (2): a box of n intervals
+    # spans n + 1 samples, boxes sharing edges): loop over every box, take max − min of its
+    # (n + 1)² samples, add R/s + 1, scale by cells/n². The hierarchical version must agree.
+    from fracto.surface.fractal import cube_counts
+
+    z = self_affine_field((65, 65), 0.4, 1.0, 1.0, rms_um=65.0, seed=5)
+    s, counts = cube_counts(z, 1.0, 1.0)
+    for j, n in enumerate([1, 2, 4, 8, 16, 32]):
+        total, boxes = 0.0, 0
+        for i0 in range(0, 64 - n + 1, n):
+            for j0 in range(0, 64 - n + 1, n):
+                b = z[i0 : i0 + n + 1, j0 : j0 + n + 1]
+                total += (b.max() - b.min()) / n + 1.0
+                boxes += 1
+        assert s[j] == n
+        assert counts[j] == pytest.approx(total / boxes * 64 * 64 / (n * n), rel=1e-5)

@@ -165,6 +165,7 @@ def test_fractography_ratios_keys_and_consistency():
     assert r["RL_x"] == profile_length_ratio(z, 0.5, 0.5, direction="x")
     assert r["RL_y"] == profile_length_ratio(z, 0.5, 0.5, direction="y")
     assert r["RS"] == surface_area_ratio(z, 0.5, 0.5)
+    assert r["RL"] == pytest.approx(profile_length_ratio_mean(z, 0.5, 0.5), abs=1e-15)
     assert all(isinstance(v, float) and math.isfinite(v) for v in r.values())
 
 

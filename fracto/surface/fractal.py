@@ -478,12 +478,13 @@ def cube_counts(z: np.ndarray, dx: float, dy: float) -> tuple[np.ndarray, np.nda
     sides, counts = [], []
     while min(mx.shape) >= 2:
         s = n * side
-        c = (mx - mn).astype(np.float64) / s + 1.0
-        ok = np.isfinite(c)
+        rng = mx - mn
+        ok = np.isfinite(rng)
         n_ok = int(np.count_nonzero(ok))
         if n_ok > 0:
+            total = float(np.sum(rng, where=ok, dtype=np.float64)) / s + n_ok  # Σ (R/s + 1)
             sides.append(s)
-            counts.append(float(c[ok].sum()) / n_ok * cells / (n * n))
+            counts.append(total / n_ok * cells / (n * n))
         h, w = (mx.shape[0] // 2) * 2, (mx.shape[1] // 2) * 2
         mx = mx[:h, :w].reshape(h // 2, 2, w // 2, 2).max(axis=(1, 3))
         mn = mn[:h, :w].reshape(h // 2, 2, w // 2, 2).min(axis=(1, 3))
@@ -517,9 +518,10 @@ def fractal_dimension_cube(
       box's (n + 1)² samples falls short of the range of the surface they
       sample by an amount that matters at small n, and more so for rough
       surfaces. On spectrally synthesised 256²-512² surfaces with an RMS
-      height of the map's width, D_cube came out 0.23-0.25 low for H = 0.3,
-      0.14-0.15 low for H = 0.5 and within 0.015 for H = 0.8 (default fit
-      range; measured in fracto's tests).
+      height of the map's width, D_cube came out 0.2-0.25 low for H = 0.3,
+      0.1-0.15 low for H = 0.5 and within 0.015 for H = 0.8 (default fit
+      range; measured in fracto's tests). Sampling the surface without a
+      low-pass (aliased) changed this by less than 0.04.
       Prefer `fractal_dimension_psd` or `fractal_dimension_variogram` for
       H ≲ 0.6; cube counting is reported as an independent, biased check.
 

@@ -44,7 +44,7 @@ __all__ = [
 ]
 
 _CHUNK_ROWS = 256  # rows per block: bounds temporaries to a few MB on large maps
-DEFAULT_MAX_SAMPLES = 1_000_000  # interpolated samples per oblique direction
+DEFAULT_MAX_SAMPLES = 300_000  # interpolated samples per oblique direction
 
 
 def _check_map(z: np.ndarray, dx: float, dy: float) -> np.ndarray:
@@ -366,9 +366,18 @@ def fractography_ratios(
     .. [2] J. R. Pickens and J. Gurland, NBS Special Publication 431, 1976.
     """
     z = _check_map(z, dx, dy)
-    rl_x = profile_length_ratio(z, dx, dy, direction="x")
-    rl_y = profile_length_ratio(z, dx, dy, direction="y")
-    rl = profile_length_ratio_mean(z, dx, dy, n_directions=n_directions, max_samples=max_samples)
+    n = int(n_directions)
+    if n < 1:
+        raise FractoInputError("The number of profile directions must be at least 1.")
+    by_angle = {
+        180.0 * k / n: profile_length_ratio(
+            z, dx, dy, direction=180.0 * k / n, max_samples=max_samples
+        )
+        for k in range(n)
+    }
+    rl = float(np.mean(list(by_angle.values())))
+    rl_x = by_angle[0.0]
+    rl_y = by_angle[90.0] if 90.0 in by_angle else profile_length_ratio(z, dx, dy, direction="y")
     rs = surface_area_ratio(z, dx, dy)
     rs_pg = pickens_gurland_rs(rl)
     return {
