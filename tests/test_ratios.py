@@ -51,6 +51,10 @@ def test_plane_rl_x_y_strings_match_angles():
     sec = 1.0 / math.cos(math.radians(40.0))
     assert profile_length_ratio(z, 1.0, 1.0, direction="x") == pytest.approx(sec, abs=1e-12)
     assert profile_length_ratio(z, 1.0, 1.0, direction="y") == pytest.approx(1.0, abs=1e-12)
+    # Angles as text (for the command line) mean the same as numbers.
+    assert profile_length_ratio(z, 1.0, 1.0, direction="30deg") == profile_length_ratio(
+        z, 1.0, 1.0, direction=30.0
+    )
 
 
 @pytest.mark.parametrize("tilt", [20.0, 45.0])

@@ -28,6 +28,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 import scipy.fft as sfft
+from scipy.optimize import minimize_scalar
 
 from fracto.errors import FractoInputError
 
@@ -349,8 +350,6 @@ def _fit_variogram_model(r: np.ndarray, s: np.ndarray) -> tuple[float, float]:
     least-squares solve of the relative residuals (S_model/S − 1); the H with
     the smallest residual is refined by a bounded scalar search.
     """
-    from scipy.optimize import minimize_scalar
-
     rn = r / r.max()
 
     def resid(h: float) -> float:

@@ -163,8 +163,9 @@ def profile_length_ratio(
         Heights (µm), NaN where not measured.
     dx, dy : float
         Column and row spacing (µm).
-    direction : {"x", "y"} or float
-        Profile direction.
+    direction : {"x", "y"}, float or str
+        Profile direction: ``"x"``, ``"y"``, or an angle in degrees given as
+        a number or as text (``"45"``, ``"45deg"``).
     max_samples : int
         At most this many interpolated samples per oblique direction (the
         lines are thinned evenly on large maps; this only affects speed and
@@ -188,6 +189,11 @@ def profile_length_ratio(
         elif key == "y":
             angle = 90.0
         else:
+            try:
+                angle = float(key.removesuffix("deg"))
+            except ValueError:
+                angle = float("nan")
+        if not math.isfinite(angle):
             raise FractoInputError(
                 "The profile direction must be 'x', 'y' or an angle in degrees, "
                 f"not '{direction}'."
