@@ -75,6 +75,9 @@ class FractureSettings:
         Fine river lines that merge into one downstream.
     cleavage_step_um : float or None
         Height of the occasional larger cleavage steps (default 0.06 × grain size).
+    cleavage_curvature : float
+        RMS bending of cleavage facets (height change at the grain edge over
+        half a grain size); 0 keeps them exactly planar.
     secondary_crack_probability : float
         Share of intergranular grain boundaries that open as secondary cracks.
     pullout_bias : float
@@ -96,17 +99,21 @@ class FractureSettings:
         Spacing of fatigue striations (one per cycle).
     striation_height_um : float
         Peak-to-valley height of a striation.
+    edge_rounding_um : float
+        σ of a Gaussian smoothing of the final map: edges and steps are
+        rounded over about this length, as real ones are (0 = sharp).
     """
 
     crack_roughness: float = 0.25
     crack_direction_deg: float | None = None
     cleavage_family: str = "100"
-    river_spacing: float = 0.07
+    river_spacing: float = 0.2
     river_step_um: float | None = None
-    river_merge: int = 4
+    river_merge: int = 3
     cleavage_step_um: float | None = None
     secondary_crack_probability: float = 0.05
-    pullout_bias: float = 3.0
+    cleavage_curvature: float = 0.06
+    pullout_bias: float = 1.0
     dimple_um: float = 1.0
     dimple_spread: float = 0.35
     dimple_depth_ratio: float = 0.7
@@ -115,6 +122,7 @@ class FractureSettings:
     shear_angle_deg: float = 0.0
     striation_spacing_um: float = 0.4
     striation_height_um: float = 0.04
+    edge_rounding_um: float = 0.1
 
     def __post_init__(self) -> None:
         if self.cleavage_family not in CLEAVAGE_FAMILIES:
@@ -181,7 +189,8 @@ def river_steps(
         steps); downstream it becomes a staircase, so ``merge`` fine steps
         crowd into one cliff — tributaries joining into a river.
     """
-    lines = v / spacing_um + wobble
+    # the lines fan in towards the exit side: spacing shrinks by up to 60 %
+    lines = v / (spacing_um * (1.0 - 0.6 * np.clip(u, 0.0, 1.0))) + wobble
     c = lines / merge
     fl = np.floor(c)
     t = c - fl

@@ -56,18 +56,23 @@ class RenderSettings:
 
     yield_base: float = 0.30
     secant_cap: float = 3.5
-    edge_gain: float = 0.45
+    edge_gain: float = 0.25
     edge_sigma_um: float = 0.06
-    detector_strength: float = 0.35
+    edge_glow_gain: float = 0.5
+    edge_glow_um: float = 0.35
+    detector_strength: float = 0.7
     detector_azimuth_deg: float = 120.0
     detector_elevation_deg: float = 30.0
+    detector_shadow: float = 0.45
+    shadow_softness_um: float = 0.4
     valley_strength: float = 0.55
-    valley_radius_um: float = 0.6
+    valley_radius_um: float = 1.2
     valley_depth_um: float = 0.25
-    blur_um: float = 0.04
-    dose: float | None = 40.0
+    blur_um: float = 0.05
+    dose: float | None = 800.0
     line_jitter: float = 0.01
     auto_level: bool = True
+    median_level: float = 0.3
     brightness: float = 0.0
     contrast: float = 1.0
     gamma: float = 1.0
@@ -82,6 +87,8 @@ class RenderSettings:
             raise FractoInputError("The JPEG quality must lie in 1..100.")
         if self.jpeg_quality is not None and self.bit_depth != 8:
             raise FractoInputError("JPEG compression needs an 8-bit image.")
+        if not (0.0 < self.median_level < 1.0):
+            raise FractoInputError("The median grey level must lie between 0 and 1.")
         if not (self.yield_base > 0 and self.secant_cap >= 1 and self.gamma > 0):
             raise FractoInputError(
                 "The base yield and gamma must be positive and the secant cap at least 1."
@@ -96,7 +103,9 @@ class RenderSettings:
             yield_base=yield_base,
             secant_cap=secant_cap,
             edge_gain=0.0,
+            edge_glow_gain=0.0,
             detector_strength=0.0,
+            detector_shadow=0.0,
             valley_strength=0.0,
             blur_um=0.0,
             dose=None,
@@ -118,9 +127,13 @@ class RenderSettings:
             secant_cap=float(rng.uniform(2.5, 5.0)),
             edge_gain=float(rng.uniform(0.15, 0.8)),
             edge_sigma_um=float(rng.uniform(0.03, 0.12)),
+            edge_glow_gain=float(rng.uniform(0.1, 1.0)),
+            edge_glow_um=float(rng.uniform(0.1, 0.6)),
             detector_strength=float(rng.uniform(0.0, 0.6)),
             detector_azimuth_deg=float(rng.uniform(0.0, 360.0)),
             detector_elevation_deg=float(rng.uniform(15.0, 60.0)),
+            detector_shadow=float(rng.uniform(0.0, 0.7)),
+            shadow_softness_um=float(rng.uniform(0.15, 0.8)),
             valley_strength=float(rng.uniform(0.2, 0.8)),
             valley_radius_um=float(rng.uniform(0.3, 1.2)),
             valley_depth_um=float(rng.uniform(0.1, 0.5)),
@@ -128,6 +141,7 @@ class RenderSettings:
             dose=float(rng.uniform(10.0, 200.0)) if rng.uniform() < 0.9 else None,
             line_jitter=float(rng.uniform(0.0, 0.03)),
             auto_level=bool(rng.uniform() < 0.8),
+            median_level=float(rng.uniform(0.22, 0.5)),
             brightness=float(rng.uniform(-0.1, 0.1)),
             contrast=float(rng.uniform(0.75, 1.3)),
             gamma=float(rng.uniform(0.75, 1.35)),
@@ -175,6 +189,40 @@ def _valley_depth(h: np.ndarray, radius_px: float) -> np.ndarray:
         return np.maximum(c - h, 0.0)
     c = ndimage.grey_closing(h, footprint=disk)
     return np.maximum(c - h, 0.0)
+
+
+def _detector_shadow(
+    h: np.ndarray, px: float, azimuth_deg: float, elevation_deg: float
+) -> np.ndarray:
+    """Height (µm) by which terrain towards the detector rises above the line of sight.
+
+    The map is rotated so the detector lies towards +x; along each row the
+    horizon is ``H(x) = max_{x' > x} [h(x') - (x' - x) tan(el)]``, found with a
+    reversed running maximum; the result ``max(H - h, 0)`` is rotated back.
+    """
+    ny, nx = h.shape
+    diag = math.ceil(math.hypot(ny, nx)) + 2
+    cx, cy = nx / 2.0, ny / 2.0
+    m = cv2.getRotationMatrix2D((cx, cy), -azimuth_deg, 1.0)
+    m[0, 2] += (diag - nx) / 2.0
+    m[1, 2] += (diag - ny) / 2.0
+    fill = float(np.min(h))
+    big = cv2.warpAffine(
+        h.astype(np.float32),
+        m,
+        (diag, diag),
+        flags=cv2.INTER_LINEAR,
+        borderMode=cv2.BORDER_CONSTANT,
+        borderValue=fill,
+    ).astype(np.float64)
+    slope = math.tan(math.radians(max(elevation_deg, 1.0))) * px
+    ramp = np.arange(diag) * slope
+    g = big + ramp[None, :]
+    horizon = np.maximum.accumulate(g[:, ::-1], axis=1)[:, ::-1] - ramp[None, :]
+    depth = np.maximum(horizon - big, 0.0).astype(np.float32)
+    inv = cv2.invertAffineTransform(m)
+    back = cv2.warpAffine(depth, inv, (nx, ny), flags=cv2.INTER_LINEAR)
+    return back.astype(np.float64)
 
 
 def _draw_banner(width: int, rows: int, px: float, rng: np.random.Generator) -> np.ndarray:
@@ -264,18 +312,30 @@ def render_sem(
     gx, gy, sec = _tilt_and_normal(h, px)
     signal = s.yield_base * np.minimum(sec, s.secant_cap)
 
+    if s.edge_gain > 0:
+        sig_px = max(s.edge_sigma_um / px, 0.8)
+        lap = ndimage.gaussian_laplace(h, sig_px) / (px * px)
+        e = np.maximum(-lap * s.edge_sigma_um, 0.0) * sec
+        e = e / (1.0 + e)
+        signal += s.yield_base * s.edge_gain * 4.0 * e
+        if s.edge_glow_gain > 0 and s.edge_glow_um > 0:
+            # secondaries escaping near an edge over the interaction range: a soft glow
+            glow = ndimage.gaussian_filter(e, max(s.edge_glow_um / px, 0.5))
+            signal += s.yield_base * s.edge_glow_gain * 4.0 * glow
+
+    # collection: what the side detector sees of the emitted signal
     if s.detector_strength > 0:
         az = math.radians(s.detector_azimuth_deg)
         el = math.radians(s.detector_elevation_deg)
         d = (math.cos(el) * math.cos(az), math.cos(el) * math.sin(az), math.sin(el))
         ndot = (-gx * d[0] - gy * d[1] + d[2]) / sec
-        signal *= 1.0 + s.detector_strength * (ndot - d[2])
+        signal *= np.maximum(1.0 + s.detector_strength * (ndot - d[2]), 0.05)
 
-    if s.edge_gain > 0:
-        sig_px = max(s.edge_sigma_um / px, 0.5)
-        lap = ndimage.gaussian_laplace(h, sig_px) / (px * px)
-        e = np.maximum(-lap * s.edge_sigma_um, 0.0) * sec
-        signal += s.yield_base * s.edge_gain * 4.0 * e / (1.0 + e)
+    if s.detector_shadow > 0:
+        depth = _detector_shadow(h, px, s.detector_azimuth_deg, s.detector_elevation_deg)
+        soft = max(s.shadow_softness_um / px, 0.5)
+        occl = 1.0 - np.exp(-ndimage.gaussian_filter(depth, soft) / max(s.shadow_softness_um, px))
+        signal *= 1.0 - s.detector_shadow * occl
 
     if s.valley_strength > 0:
         occ = _valley_depth(h, s.valley_radius_um / px)
@@ -292,13 +352,15 @@ def render_sem(
         signal = rng.poisson(lam).astype(np.float64) / s.dose
 
     if s.auto_level:
-        lo, hi = np.percentile(signal, [0.3, 99.7])
-        signal = 0.04 + 0.92 * (signal - lo) / max(hi - lo, 1e-9)
-    signal = (
-        s.contrast * (signal - 0.5) + 0.5 + s.brightness
-        if s.auto_level
-        else (s.contrast * signal + s.brightness)
-    )
+        # automatic levels as an SEM operator sets them: the range spans the
+        # image and the median sits a little below mid-grey
+        lo, med, hi = np.percentile(signal, [0.5, 50.0, 99.7])
+        t = np.clip((signal - lo) / max(hi - lo, 1e-9), 0.0, 1.0)
+        m = float(np.clip((med - lo) / max(hi - lo, 1e-9), 0.02, 0.98))
+        signal = 0.03 + 0.94 * t ** (math.log(s.median_level) / math.log(m))
+        signal = s.contrast * (signal - 0.5) + 0.5 + s.brightness
+    else:
+        signal = s.contrast * signal + s.brightness
     signal = np.clip(signal, 0.0, 1.0)
     if s.gamma != 1.0:
         signal = signal ** (1.0 / s.gamma)

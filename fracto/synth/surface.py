@@ -318,7 +318,7 @@ def make_surface(
     crack = gaussian_correlated_field(
         (ny, nx), 4.0 * d_nom, px, px, rms_um=b_rms, seed=int(streams[0].integers(2**31))
     )
-    slab = 1.6 * gs.largest_um + 4.0 * b_rms
+    slab = 1.1 * gs.largest_um + 4.0 * b_rms
     poly = make_polycrystal(extent, gs, seed=int(streams[1].integers(2**31)), slab_half_um=slab)
     yy, xx = np.mgrid[0:ny, 0:nx]
     x = ((xx + 0.5) * px).ravel()
@@ -368,31 +368,39 @@ def make_surface(
     sel = pmode == 1
     if sel.any():
         normals = cleavage_normals(poly.rotations[present], fs.cleavage_family)
-        zc = bc + 0.15 * size_um * rng.standard_normal(n_g)
         gs_ = g[sel]
         nn = normals[gs_]
         xc = (cx[gs_] + 0.5) * px
         yc = (cy[gs_] + 0.5) * px
-        plane = zc[gs_] - (nn[:, 0] * (x[sel] - xc) + nn[:, 1] * (y[sel] - yc)) / nn[:, 2]
         travel = (
             math.radians(fs.crack_direction_deg)
             if fs.crack_direction_deg is not None
             else float(streams[5].uniform(0, 2 * math.pi))
         )
         ang = travel + np.radians(25.0) * rng.standard_normal(n_g)
-        ca, sa = np.cos(ang)[gs_], np.sin(ang)[gs_]
         du, dv = x[sel] - xc, y[sel] - yc
+        ca, sa = np.cos(ang)[gs_], np.sin(ang)[gs_]
         u = du * ca + dv * sa
         v = -du * sa + dv * ca
-        umin = ndimage.minimum(u, gs_, np.arange(n_g))
-        umax = ndimage.maximum(u, gs_, np.arange(n_g))
-        umin = np.asarray(umin)[gs_]
-        umax = np.asarray(umax)[gs_]
+        umin_g = np.asarray(ndimage.minimum(u, gs_, np.arange(n_g)))
+        umax_g = np.asarray(ndimage.maximum(u, gs_, np.arange(n_g)))
+        umin = umin_g[gs_]
+        umax = umax_g[gs_]
         un = (u - umin) / np.maximum(umax - umin, px)
-        wob = _smooth_noise((ny, nx), px, 0.6 * d_nom, streams[6]).ravel()[sel]
+        # the facet starts where the crack enters the grain: there it meets the
+        # crack surface (continuity of the crack front), elsewhere it follows the plane
+        ex = (cx + 0.5) * px + np.nan_to_num(umin_g) * np.cos(ang)
+        ey = (cy + 0.5) * px + np.nan_to_num(umin_g) * np.sin(ang)
+        ei = np.clip(np.round(ey / px - 0.5).astype(int), 0, ny - 1)
+        ej = np.clip(np.round(ex / px - 0.5).astype(int), 0, nx - 1)
+        slope_t = (normals[:, 0] * np.cos(ang) + normals[:, 1] * np.sin(ang)) / normals[:, 2]
+        zc = crack[ei, ej] + np.nan_to_num(umin_g) * slope_t
+        zc = zc + 0.04 * size_um * rng.standard_normal(n_g)
+        plane = zc[gs_] - (nn[:, 0] * du + nn[:, 1] * dv) / nn[:, 2]
+        wob = _smooth_noise((ny, nx), px, 1.2 * d_nom, streams[6]).ravel()[sel]
         spacing = np.maximum(fs.river_spacing * size_um[gs_], 3.0 * px)
-        steps = river_steps(un, v, 0.6 * wob, spacing, fs.river_merge)
-        step_h = fs.river_step_um if fs.river_step_um is not None else 0.012 * d_nom
+        steps = river_steps(un, v, 0.3 * wob, spacing, fs.river_merge)
+        step_h = fs.river_step_um if fs.river_step_um is not None else 0.02 * d_nom
         sign = np.where(rng.uniform(size=n_g) < 0.5, -1.0, 1.0)[gs_]
         relief = sign * step_h * (steps - steps.mean())
         # occasional larger cleavage steps along the travel direction
@@ -401,7 +409,11 @@ def make_surface(
         off = rng.uniform(size=n_g)[gs_]
         big = np.floor(v / (0.45 * size_um[gs_]) + off + 0.3 * wob)
         relief += np.where(has_big, big_h * big, 0.0)
-        zz = plane + relief
+        # conchoidal bending of the facet: a random quadratic form per grain
+        kappa = fs.cleavage_curvature * rng.standard_normal((n_g, 2))[gs_]
+        half = 0.5 * np.maximum(size_um[gs_], px)
+        bend = kappa[:, 0] * (u / half) ** 2 + kappa[:, 1] * (v / half) ** 2
+        zz = plane + relief + bend * half
         h[sel] = np.clip(zz, z_bot[sel] + 0.01 * px, z_top[sel] - 0.01 * px)
 
     # ductile
@@ -464,6 +476,8 @@ def make_surface(
             depth = 0.35 * d_nom
             height = np.where(opened, height - depth, height)
 
+    if fs.edge_rounding_um > 0:
+        height = ndimage.gaussian_filter(height, fs.edge_rounding_um / px)
     height32 = height.astype(np.float32)
     sem = render_sem(height32, px, rs, seed=int(streams[9].integers(2**31)))
 
