@@ -210,6 +210,8 @@ def test_fit_range_is_respected():
         lambda: fractal_dimension_variogram(np.full((32, 32), np.nan), 1.0, 1.0),
         lambda: fractal_dimension_cube(np.zeros((32, 32)), -1.0, 1.0),
         lambda: fractal_dimension_psd(np.zeros((32, 32, 2)), 1.0, 1.0),
+        lambda: fractal_dimension_psd(np.ones((32, 32)), 1.0, 1.0),
+        lambda: fractal_dimension_variogram(np.ones((32, 32)), 1.0, 1.0),
     ],
 )
 def test_bad_input_raises(call):

@@ -49,6 +49,8 @@ class FractalEstimate:
     ----------
     value : float
         Fractal dimension D of the surface (2 ≤ D ≤ 3 for a self-affine one).
+        The value is not clipped: one outside [2, 3] (or a low `r2`) says the
+        surface is not self-affine over the fit range.
     fit_range : (float, float)
         Smallest and largest lateral scale of the fit, in the units of dx/dy
         (µm, or pixels when dx = dy = 1): wavelengths 2π/q for the PSD, lags
@@ -144,6 +146,12 @@ def _valid_fraction(z: np.ndarray) -> tuple[np.ndarray, float]:
     return valid, frac
 
 
+def _require_relief(z: np.ndarray, valid: np.ndarray) -> None:
+    v = z[valid]
+    if float(np.max(v)) == float(np.min(v)):
+        raise FractoInputError("The height map is flat, so it has no spectral or variogram slope.")
+
+
 def fill_missing(z: np.ndarray) -> np.ndarray:
     """Fill non-measured points with a local mean of the measured ones (float32 copy).
 
@@ -198,7 +206,8 @@ def radial_psd(
     valid_fraction : float
     """
     z = _check_map(z, dx, dy)
-    _, frac = _valid_fraction(z)
+    valid, frac = _valid_fraction(z)
+    _require_relief(z, valid)
     ny, nx = z.shape
     zz = fill_missing(z)
     zz -= np.float32(np.mean(zz, dtype=np.float64))
@@ -418,7 +427,8 @@ def fractal_dimension_variogram(
     """
     z = _check_map(z, dx, dy)
     fr = _check_fit_range(fit_range)
-    _, frac = _valid_fraction(z)
+    valid, frac = _valid_fraction(z)
+    _require_relief(z, valid)
     r, s = structure_function(z, dx, dy)
     if fr is not None:
         sel = (r >= fr[0] * (1 - 1e-9)) & (r <= fr[1] * (1 + 1e-9))
