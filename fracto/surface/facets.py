@@ -59,9 +59,9 @@ def surface_normals(
     3 x 3 neighbourhood (the Prewitt operator: ``dz/dx`` = mean of the right
     column minus mean of the left column over ``2 dx``). With ``scale_um`` the
     slopes are those of a Gaussian-weighted least-squares plane fit of standard
-    deviation ``scale_um``: for a symmetric window this equals the derivative
-    of the Gaussian-smoothed map, computed here with normalised convolution so
-    that NaN points are left out.
+    deviation ``scale_um`` (along x and along y; for a full symmetric window
+    this is the derivative of the Gaussian-smoothed map), with NaN points
+    given zero weight.
 
     Parameters
     ----------
@@ -113,21 +113,45 @@ def surface_normals(
     else:
         sx, sy = scale_um / dx, scale_um / dy
         w = valid.astype(np.float64)
-        norm = ndimage.gaussian_filter(w, (sy, sx), mode="nearest")
-        s0 = ndimage.gaussian_filter(zf, (sy, sx), mode="nearest")
-        # derivative of the normalised convolution (quotient rule)
-        s0x = ndimage.gaussian_filter(zf, (sy, sx), order=(0, 1), mode="nearest")
-        s0y = ndimage.gaussian_filter(zf, (sy, sx), order=(1, 0), mode="nearest")
-        nx_ = ndimage.gaussian_filter(w, (sy, sx), order=(0, 1), mode="nearest")
-        ny_ = ndimage.gaussian_filter(w, (sy, sx), order=(1, 0), mode="nearest")
-        with np.errstate(invalid="ignore", divide="ignore"):
-            gx = (s0x * norm - s0 * nx_) / norm**2 / dx
-            gy = (s0y * norm - s0 * ny_) / norm**2 / dy
-        bad = ~valid | (norm < 0.5)
+        gx, gy, norm = _gaussian_plane_slopes(zf, w, sx, sy)
+        gx, gy = gx / dx, gy / dy
+        bad = ~valid | (norm < 0.2)
     inv = 1.0 / np.sqrt(1.0 + gx * gx + gy * gy)
     n = np.stack((-gx * inv, -gy * inv, inv), axis=-1)
     n[bad] = np.nan
     return n
+
+
+def _gaussian_plane_slopes(
+    zf: np.ndarray, w: np.ndarray, sx: float, sy: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Slopes (per pixel) of the Gaussian-weighted least-squares line fits along x
+    and along y over each window, with weights w (0 at missing points).
+
+    slope = (S_xz - S_x S_z / S) / (S_xx - S_x^2 / S), all sums weighted by
+    g(x) g(y) w; exact on planes, whatever the kernel truncation.
+    """
+
+    def kern(sig: float, power: int) -> np.ndarray:
+        r = max(1, math.ceil(4 * sig))
+        x = np.arange(-r, r + 1, dtype=np.float64)
+        g = np.exp(-0.5 * (x / sig) ** 2)
+        return g * x**power
+
+    def sep(a: np.ndarray, px: int, py: int) -> np.ndarray:
+        out = ndimage.correlate1d(a, kern(sx, px), axis=1, mode="constant")
+        return ndimage.correlate1d(out, kern(sy, py), axis=0, mode="constant")
+
+    wz = zf * w
+    s0 = sep(w, 0, 0)
+    sz = sep(wz, 0, 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sxv, sxx, sxz = sep(w, 1, 0), sep(w, 2, 0), sep(wz, 1, 0)
+        gx = (sxz - sxv * sz / s0) / (sxx - sxv * sxv / s0)
+        syv, syy, syz = sep(w, 0, 1), sep(w, 0, 2), sep(wz, 0, 1)
+        gy = (syz - syv * sz / s0) / (syy - syv * syv / s0)
+    g0 = kern(sx, 0).sum() * kern(sy, 0).sum()
+    return gx, gy, s0 / g0
 
 
 def tilt_azimuth(normals: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -275,15 +299,15 @@ def plot_lambert_projection(
             fontsize=7,
             color="0.35",
         )
-    rr = math.sqrt(2) * 1.04
+    rr = math.sqrt(2) + 0.2
     for az in (0, 90, 180, 270):
         a = math.radians(az)
         ax.text(rr * math.cos(a), rr * math.sin(a), f"{az}°", ha="center", va="center", fontsize=8)
-    ax.set_xlim(-1.6, 1.6)
-    ax.set_ylim(-1.6, 1.6)
+    ax.set_xlim(-1.75, 1.75)
+    ax.set_ylim(-1.75, 1.75)
     ax.set_aspect("equal")
     ax.set_xlabel("X = 2 sin(tilt/2) cos(azimuth)")
-    ax.set_ylabel("Y = 2 sin(tilt/2) sin(azimuth)")
+    ax.set_ylabel("Y = 2 sin(tilt/2) sin(azimuth)  (+y = map rows)")
     ax.set_title(title, fontsize=10)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
@@ -385,7 +409,7 @@ def segment_facets(
     tol = math.radians(planarity_tol_deg)
     valid = np.isfinite(n).all(axis=2)
     X, Y = lambert_coordinates(np.where(valid[..., None], n, 0.0))
-    nb = int(math.ceil(2 * math.sqrt(2) / tol)) + 1
+    nb = math.ceil(2 * math.sqrt(2) / tol) + 1
     qx = np.floor((X + math.sqrt(2)) / tol).astype(np.int64)
     qy = np.floor((Y + math.sqrt(2)) / tol).astype(np.int64)
     cell = qy * nb + qx + 1
