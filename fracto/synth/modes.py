@@ -121,7 +121,7 @@ class FractureSettings:
     shear_elongation: float = 1.0
     shear_angle_deg: float = 0.0
     striation_spacing_um: float = 0.4
-    striation_height_um: float = 0.04
+    striation_height_um: float = 0.08
     edge_rounding_um: float = 0.1
 
     def __post_init__(self) -> None:
