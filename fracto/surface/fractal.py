@@ -451,6 +451,13 @@ def fractal_dimension_variogram(
     )
 
 
+def _block2(a: np.ndarray, op: np.ufunc) -> np.ndarray:
+    """2 × 2 block reduction (max or min) by strided views; odd last row/column dropped."""
+    h, w = (a.shape[0] // 2) * 2, (a.shape[1] // 2) * 2
+    r = op(a[0:h:2, :w], a[1:h:2, :w])
+    return op(r[:, 0::2], r[:, 1::2])
+
+
 def cube_counts(z: np.ndarray, dx: float, dy: float) -> tuple[np.ndarray, np.ndarray]:
     """Cube counts N(s) on dyadic box sides s = n·√(dx·dy), n = 1, 2, 4, ...
 
@@ -465,7 +472,7 @@ def cube_counts(z: np.ndarray, dx: float, dy: float) -> tuple[np.ndarray, np.nda
     scaled to the whole map area (see below).
 
     The block extremes are built hierarchically: the 2 × 2-sample extremes,
-    then 2 × 2 blocks of the previous level (reshape-based), so level n covers
+    then 2 × 2 blocks of the previous level (strided views), so level n covers
     samples i·n ... (i + 1)·n inclusive. The count is scaled to the whole map
     area: mean count per valid box × (number of cells / n²), so the partial
     boxes left over at the map's edges do not bend the slope.
@@ -480,23 +487,29 @@ def cube_counts(z: np.ndarray, dx: float, dy: float) -> tuple[np.ndarray, np.nda
     z = _check_map(z, dx, dy)
     a = z.astype(np.float32, copy=False)
     cells = (z.shape[0] - 1) * (z.shape[1] - 1)
-    mx = np.maximum(np.maximum(a[:-1, :-1], a[1:, :-1]), np.maximum(a[:-1, 1:], a[1:, 1:]))
-    mn = np.minimum(np.minimum(a[:-1, :-1], a[1:, :-1]), np.minimum(a[:-1, 1:], a[1:, 1:]))
+    rows = np.maximum(a[:-1], a[1:])
+    mx = np.maximum(rows[:, :-1], rows[:, 1:])
+    np.minimum(a[:-1], a[1:], out=rows)
+    mn = np.minimum(rows[:, :-1], rows[:, 1:])
+    del rows
     side = math.sqrt(dx * dy)
     n = 1
     sides, counts = [], []
     while min(mx.shape) >= 2:
         s = n * side
         rng = mx - mn
-        ok = np.isfinite(rng)
-        n_ok = int(np.count_nonzero(ok))
+        total = float(np.sum(rng, dtype=np.float64))
+        if math.isfinite(total):
+            n_ok = rng.size
+        else:  # boxes with a non-measured sample are left out
+            ok = np.isfinite(rng)
+            n_ok = int(np.count_nonzero(ok))
+            total = float(np.sum(rng, where=ok, dtype=np.float64))
         if n_ok > 0:
-            total = float(np.sum(rng, where=ok, dtype=np.float64)) / s + n_ok  # Σ (R/s + 1)
             sides.append(s)
-            counts.append(total / n_ok * cells / (n * n))
-        h, w = (mx.shape[0] // 2) * 2, (mx.shape[1] // 2) * 2
-        mx = mx[:h, :w].reshape(h // 2, 2, w // 2, 2).max(axis=(1, 3))
-        mn = mn[:h, :w].reshape(h // 2, 2, w // 2, 2).min(axis=(1, 3))
+            counts.append((total / s + n_ok) / n_ok * cells / (n * n))  # Σ (R/s + 1), scaled
+        mx = _block2(mx, np.maximum)
+        mn = _block2(mn, np.minimum)
         n *= 2
     return np.asarray(sides), np.asarray(counts)
 
