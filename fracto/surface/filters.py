@@ -61,15 +61,23 @@ def _radius(cutoff_um: float, spacing: float, truncate: float) -> int:
     return max(1, math.floor(truncate * cutoff_um / spacing + 0.5))
 
 
-def _filter_axis(a: np.ndarray, sigma_px: float, radius: int, axis: int) -> np.ndarray:
-    """Gaussian-filter `a` along `axis`, zero outside; returns a new float64 array."""
+def _filter_axis(
+    a: np.ndarray, sigma_px: float, radius: int, axis: int, *, inplace: bool = False
+) -> np.ndarray:
+    """Gaussian-filter float64 `a` along `axis`, zero outside the data.
+
+    With ``inplace`` the result overwrites `a` (each line is read before it is
+    written, for both paths), which saves one map-sized array.
+    """
     n = a.shape[axis]
     taps = 2 * radius + 1
+    out = a if inplace else np.empty_like(a, dtype=np.float64)
     if taps <= _DIRECT_MAX_TAPS:
         return ndimage.gaussian_filter1d(
             a,
             sigma_px,
             axis=axis,
+            output=out,
             mode="constant",
             cval=0.0,
             truncate=radius / sigma_px,
@@ -79,7 +87,6 @@ def _filter_axis(a: np.ndarray, sigma_px: float, radius: int, axis: int) -> np.n
     kpad = np.zeros(length)
     kpad[:taps] = _kernel(sigma_px, radius)
     kspec = scipy.fft.rfft(kpad)
-    out = np.empty_like(a, dtype=np.float64)
     if a.ndim == 1:
         full = scipy.fft.irfft(scipy.fft.rfft(a, n=length) * kspec, n=length)
         out[:] = full[radius : radius + n]
@@ -99,6 +106,7 @@ def _filter_axis(a: np.ndarray, sigma_px: float, radius: int, axis: int) -> np.n
             out[:, s : s + block] = full[radius : radius + n]
         else:
             out[s : s + block] = full[:, radius : radius + n]
+        del full
     return out
 
 
@@ -179,7 +187,8 @@ def gaussian_mean_surface(
     sigma_um = gaussian_sigma_um(cutoff_um)
     rx, ry = _radius(cutoff_um, dx, truncate), _radius(cutoff_um, dy, truncate)
     num = np.where(valid, z, 0.0)
-    num = _filter_axis(_filter_axis(num, sigma_um / dx, rx, 1), sigma_um / dy, ry, 0)
+    _filter_axis(num, sigma_um / dx, rx, 1, inplace=True)
+    _filter_axis(num, sigma_um / dy, ry, 0, inplace=True)
     if valid.all():
         # The weight is separable: product of the 1-D border weights.
         wx = _filter_axis(np.ones(nx), sigma_um / dx, rx, 0)
@@ -187,7 +196,8 @@ def gaussian_mean_surface(
         den = wy[:, None] * wx[None, :]
     else:
         den = valid.astype(np.float64)
-        den = _filter_axis(_filter_axis(den, sigma_um / dx, rx, 1), sigma_um / dy, ry, 0)
+        _filter_axis(den, sigma_um / dx, rx, 1, inplace=True)
+        _filter_axis(den, sigma_um / dy, ry, 0, inplace=True)
     ok = den >= min_weight
     np.divide(num, den, out=num, where=ok)
     num[~ok] = np.nan
@@ -266,8 +276,8 @@ def gaussian_profile_filter(
     sigma_px = gaussian_sigma_um(cutoff_um) / dx
     r = _radius(cutoff_um, dx, truncate)
     axis = p.ndim - 1
-    num = _filter_axis(np.where(valid, p, 0.0), sigma_px, r, axis)
-    den = _filter_axis(valid.astype(np.float64), sigma_px, r, axis)
+    num = _filter_axis(np.where(valid, p, 0.0), sigma_px, r, axis, inplace=True)
+    den = _filter_axis(valid.astype(np.float64), sigma_px, r, axis, inplace=True)
     ok = den >= min_weight
     np.divide(num, den, out=num, where=ok)
     num[~ok] = np.nan
