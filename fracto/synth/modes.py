@@ -205,8 +205,12 @@ def dimple_field(
     pixel_size_um: float,
     settings: FractureSettings,
     rng: np.random.Generator,
+    mask: np.ndarray | None = None,
 ) -> np.ndarray:
     """Height field (µm) of coalesced microvoids over the whole map.
+
+    With `mask` (boolean, the map's shape) only those pixels are computed
+    (the others are 0); the field itself does not depend on the mask.
 
     The height is the lower envelope of paraboloidal cups
     ``D_k ((r_k/R_k)² − 1)`` around nucleation sites ``k`` (radius ``R_k``,
@@ -235,9 +239,10 @@ def dimple_field(
     tilt = (e - 1.0) / e * 0.6 * rng.uniform(0.5, 1.0, n)  # shear tilts the cup floors
     particle = rng.uniform(size=n) < settings.particle_fraction
     tree = cKDTree(sites)
-    pts = np.c_[p_al.ravel(), p_ac.ravel()]
-    k = 6
-    dist, idx = tree.query(pts, k=k)
+    flat = np.flatnonzero(mask.ravel()) if mask is not None else np.arange(ny * nx)
+    pts = np.c_[p_al.ravel()[flat], p_ac.ravel()[flat]]
+    k = 5
+    dist, idx = tree.query(pts, k=k, workers=2)
     r = radii[idx]
     du = pts[:, 0:1] - sites[idx, 0]
     cups = depth[idx] * ((dist / r) ** 2 - 1.0) + tilt[idx] * depth[idx] * du / r
@@ -247,8 +252,9 @@ def dimple_field(
     kb = idx[rows, best]
     dd = dist[rows, best] / radii[kb]
     bump = np.where(particle[kb] & (dd < 0.3), np.sqrt(np.maximum(0.09 - dd * dd, 0.0)), 0.0)
-    h = h + bump * radii[kb] * 0.9
-    return h.reshape(ny, nx)
+    out = np.zeros(ny * nx)
+    out[flat] = h + bump * radii[kb] * 0.9
+    return out.reshape(ny, nx)
 
 
 def striations(

@@ -43,6 +43,7 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -218,7 +219,7 @@ class Polycrystal:
             owner = np.zeros(len(pts), np.int64)
             for w in classes:
                 members = np.flatnonzero(self.weights_um2 == w)
-                dist, k = cKDTree(self.seeds_um[members]).query(pts, k=1)
+                dist, k = cKDTree(self.seeds_um[members]).query(pts, k=1, workers=2)
                 power = dist * dist - w
                 better = power < best
                 best[better] = power[better]
@@ -226,12 +227,17 @@ class Polycrystal:
             return owner
         # many weights: exact search among seeds lifted to 4-D (see `lifted`)
         lifted, _ = self.lifted()
-        _, idx = cKDTree(lifted).query(np.c_[pts, np.zeros(len(pts))], k=1)
+        _, idx = cKDTree(lifted).query(np.c_[pts, np.zeros(len(pts))], k=1, workers=2)
         return idx.astype(np.int64)
 
 
 def _rsa_spheres(
-    rng: np.random.Generator, n: int, lo: np.ndarray, hi: np.ndarray, min_dist: float
+    rng: np.random.Generator,
+    n: int,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    min_dist: float,
+    shift: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> np.ndarray:
     """Random sequential addition of up to `n` points at mutual distance >= min_dist."""
     pts: list[np.ndarray] = []
@@ -239,6 +245,8 @@ def _rsa_spheres(
     batch = 256
     while len(pts) < n and tries < 60 * max(n, 1):
         cand = rng.uniform(lo, hi, size=(batch, 3))
+        if shift is not None:
+            cand[:, 2] += shift(cand[:, 0], cand[:, 1])
         tries += batch
         for c in cand:
             if pts:
@@ -273,6 +281,7 @@ def make_polycrystal(
     seed: int = 0,
     slab_half_um: float | None = None,
     margin_um: float | None = None,
+    crack_um: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> Polycrystal:
     """Seed a 3-D polycrystal over a field of view and tessellate it.
 
@@ -291,6 +300,10 @@ def make_polycrystal(
     margin_um : float, optional
         Extra width seeded around the field so its edges are interior
         (default 1.5 × the largest grain size).
+    crack_um : callable, optional
+        ``z = crack_um(x, y)``: the seeded slab follows this surface (seeds
+        uniform in ``|z - crack(x, y)| <= slab_half_um``, still a Poisson
+        process), so a wandering crack needs no thicker slab.
 
     Returns
     -------
@@ -321,6 +334,8 @@ def make_polycrystal(
                 "or fewer pixels."
             )
         seeds = rng.uniform(lo, hi, size=(n, 3))
+        if crack_um is not None:
+            seeds[:, 2] += crack_um(seeds[:, 0], seeds[:, 1])
         if s > 0:
             d = np.exp(mu + s * rng.standard_normal(n))
             weights = (0.5 * d) ** 2
@@ -331,7 +346,7 @@ def make_polycrystal(
         dc, df = float(grain_size.coarse_um), float(grain_size.fine_um)  # type: ignore[arg-type]
         vc = math.pi / 6.0 * dc**3
         n_c = round(float(grain_size.coarse_volume_fraction) * vol / vc)  # type: ignore[arg-type]
-        coarse = _rsa_spheres(rng, n_c, lo, hi, 0.95 * dc)
+        coarse = _rsa_spheres(rng, n_c, lo, hi, 0.95 * dc, crack_um)
         n_f = rng.poisson(vol / (math.pi / 6.0 * df**3))
         if n_f + len(coarse) > 400_000:
             raise FractoInputError(
@@ -339,6 +354,8 @@ def make_polycrystal(
                 "grain size or fewer pixels."
             )
         fine = rng.uniform(lo, hi, size=(n_f, 3))
+        if crack_um is not None:
+            fine[:, 2] += crack_um(fine[:, 0], fine[:, 1])
         if len(coarse):
             # fine seeds inside a coarse sphere would only leave slivers: drop them
             dist, _ = cKDTree(coarse).query(fine, k=1)
@@ -350,6 +367,8 @@ def make_polycrystal(
         )
     rot = Rotation.random(len(seeds), random_state=rng).as_matrix()
     neighbours = _power_neighbours(seeds, weights)
+    if crack_um is not None and len(seeds):
+        zh = float(np.max(np.abs(seeds[:, 2]))) + zh
     return Polycrystal(seeds, weights, rot, population, neighbours, zh)
 
 
@@ -400,61 +419,73 @@ def column_extent(
         Neighbour grain across the top and the bottom face (-1 at the slab).
     """
     grain = np.asarray(grain, np.int64)
+    x_um = np.asarray(x_um, np.float64)
+    y_um = np.asarray(y_um, np.float64)
     n = grain.size
-    z_top = np.full(n, poly.slab_half_um)
-    z_bot = np.full(n, -poly.slab_half_um)
+    zh = poly.slab_half_um
+    z_top = np.full(n, zh)
+    z_bot = np.full(n, -zh)
     f_top = np.full(n, -1, np.int64)
     f_bot = np.full(n, -1, np.int64)
+    if n == 0:
+        return z_top, z_bot, f_top, f_bot
     s = poly.seeds_um
     pw = np.sum(s**2, axis=1) - poly.weights_um2
-    present = np.unique(grain)
-    deg = np.array([len(poly.neighbours[i]) for i in present])
-    degree_of = np.zeros(len(s), np.int64)
-    degree_of[present] = deg
-    pix_deg = degree_of[grain]
-    limits = [16, 32, 48, 64, 96, 128, 256, 512, 1 << 30]
-    lo = 0
-    for hi in limits:
-        sel_g = present[(deg > lo) & (deg <= hi)]
-        lo_b = lo
-        lo = hi
-        if sel_g.size == 0:
+    present, pix_row = np.unique(grain, return_inverse=True)
+    # every (grain, neighbour) pair of the grains present, as a plane z = α + β x + γ y
+    counts = np.array([len(poly.neighbours[i]) for i in present])
+    gi = np.repeat(np.arange(present.size), counts)
+    nj = (
+        np.concatenate([poly.neighbours[i] for i in present])
+        if counts.sum()
+        else np.zeros(0, np.int64)
+    )
+    si = present[gi]
+    a = s[nj] - s[si]
+    c = pw[nj] - pw[si]
+    az = a[:, 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        alpha = c / (2.0 * az)
+        beta = -a[:, 0] / az
+        gamma = -a[:, 1] / az
+    for up in (True, False):
+        sel = az > 0 if up else az < 0
+        g_s, j_s = gi[sel], nj[sel]
+        al, be, ga = alpha[sel], beta[sel], gamma[sel]
+        order = np.argsort(g_s, kind="stable")
+        g_s, j_s, al, be, ga = g_s[order], j_s[order], al[order], be[order], ga[order]
+        cnt = np.bincount(g_s, minlength=present.size)
+        start = np.concatenate([[0], np.cumsum(cnt)[:-1]])
+        slot = np.arange(g_s.size) - start[g_s]
+        m_all = int(cnt.max()) if cnt.size else 0
+        if m_all == 0:
             continue
-        m = int(max(len(poly.neighbours[i]) for i in sel_g))
-        row_of = np.full(len(s), -1, np.int64)
-        row_of[sel_g] = np.arange(sel_g.size)
-        pad = np.full((sel_g.size, m), -1, np.int64)
-        for r, i in enumerate(sel_g):
-            nb = poly.neighbours[i]
-            pad[r, : len(nb)] = nb
-        pix = np.flatnonzero((pix_deg > lo_b) & (pix_deg <= hi))
-        for start in range(0, pix.size, max(1, chunk * 32 // m)):
-            p = pix[start : start + max(1, chunk * 32 // m)]
-            gi = grain[p]
-            nb = pad[row_of[gi]]
-            valid = nb >= 0
-            nbc = np.where(valid, nb, 0)
-            a = s[nbc] - s[gi][:, None, :]
-            b = (
-                pw[nbc]
-                - pw[gi][:, None]
-                - 2.0 * a[..., 0] * x_um[p][:, None]
-                - 2.0 * a[..., 1] * y_um[p][:, None]
-            )
-            az = a[..., 2]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                bound = b / (2.0 * az)
-            up = np.where(valid & (az > 0), bound, np.inf)
-            dn = np.where(valid & (az < 0), bound, -np.inf)
-            kt = np.argmin(up, axis=1)
-            kb = np.argmax(dn, axis=1)
-            rows = np.arange(p.size)
-            t = up[rows, kt]
-            bt = dn[rows, kb]
-            ok_t = np.isfinite(t) & (t < poly.slab_half_um)
-            ok_b = np.isfinite(bt) & (bt > -poly.slab_half_um)
-            z_top[p[ok_t]] = t[ok_t]
-            f_top[p[ok_t]] = nb[rows, kt][ok_t]
-            z_bot[p[ok_b]] = bt[ok_b]
-            f_bot[p[ok_b]] = nb[rows, kb][ok_b]
+        fill = np.inf if up else -np.inf
+        A = np.full((present.size, m_all), fill)
+        B = np.zeros((present.size, m_all))
+        G = np.zeros((present.size, m_all))
+        J = np.full((present.size, m_all), -1, np.int64)
+        A[g_s, slot], B[g_s, slot], G[g_s, slot], J[g_s, slot] = al, be, ga, j_s
+        pix_cnt = cnt[pix_row]
+        lo = 0
+        for hi in (8, 12, 16, 24, 32, 48, 64, 128, 256, 1 << 30):
+            pix = np.flatnonzero((pix_cnt > lo) & (pix_cnt <= hi))
+            m = min(hi, m_all)
+            lo = hi
+            step = max(1, chunk * 32 // m)
+            for st in range(0, pix.size, step):
+                p = pix[st : st + step]
+                r = pix_row[p]
+                bound = A[r, :m] + B[r, :m] * x_um[p, None] + G[r, :m] * y_um[p, None]
+                k = np.argmin(bound, axis=1) if up else np.argmax(bound, axis=1)
+                rows = np.arange(p.size)
+                val = bound[rows, k]
+                if up:
+                    ok = np.isfinite(val) & (val < zh)
+                    z_top[p[ok]] = val[ok]
+                    f_top[p[ok]] = J[r, k][ok]
+                else:
+                    ok = np.isfinite(val) & (val > -zh)
+                    z_bot[p[ok]] = val[ok]
+                    f_bot[p[ok]] = J[r, k][ok]
     return z_top, z_bot, f_top, f_bot

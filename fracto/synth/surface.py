@@ -254,6 +254,7 @@ def make_surface(
     render: RenderSettings | None = None,
     fracture: FractureSettings | None = None,
     seed: int = 0,
+    profile: dict | None = None,
 ) -> SyntheticSurface:
     """Make a synthetic fracture surface with known mode fractions and its SEM view.
 
@@ -279,6 +280,8 @@ def make_surface(
         Geometry of the modes (default :class:`FractureSettings`).
     seed : int
         Seed of every random step.
+    profile : dict, optional
+        When given, filled with the seconds spent in each stage (benchmarks).
 
     Returns
     -------
@@ -313,13 +316,34 @@ def make_surface(
     d_nom = gs.nominal_um
     extent = (ny * px, nx * px)
 
+    import time
+
+    clock = [time.perf_counter()]
+
+    def lap(name: str) -> None:
+        now = time.perf_counter()
+        if profile is not None:
+            profile[name] = profile.get(name, 0.0) + now - clock[0]
+        clock[0] = now
+
     # --- crack surface and polycrystal ------------------------------------------------------
     b_rms = fs.crack_roughness * d_nom
     crack = gaussian_correlated_field(
         (ny, nx), 4.0 * d_nom, px, px, rms_um=b_rms, seed=int(streams[0].integers(2**31))
     )
-    slab = 1.1 * gs.largest_um + 4.0 * b_rms
-    poly = make_polycrystal(extent, gs, seed=int(streams[1].integers(2**31)), slab_half_um=slab)
+    slab = 1.1 * gs.largest_um
+
+    def crack_at(xq: np.ndarray, yq: np.ndarray) -> np.ndarray:
+        # the synthesised crack surface is periodic over the map: wrap outside it
+        return ndimage.map_coordinates(
+            crack, [yq / px - 0.5, xq / px - 0.5], order=1, mode="grid-wrap"
+        )
+
+    lap("crack surface")
+    poly = make_polycrystal(
+        extent, gs, seed=int(streams[1].integers(2**31)), slab_half_um=slab, crack_um=crack_at
+    )
+    lap("tessellation")
     yy, xx = np.mgrid[0:ny, 0:nx]
     x = ((xx + 0.5) * px).ravel()
     y = ((yy + 0.5) * px).ravel()
@@ -327,7 +351,9 @@ def make_surface(
     present, compact = np.unique(owner, return_inverse=True)
     gid = (compact + 1).reshape(ny, nx).astype(np.int32)
     n_g = len(present)
+    lap("grain map")
     z_top, z_bot, _f_top, _f_bot = column_extent(poly, owner, x, y)
+    lap("grain faces")
 
     idx = np.arange(1, n_g + 1)
     areas = ndimage.sum_labels(np.ones_like(gid, np.float64), gid, idx)
@@ -350,6 +376,7 @@ def make_surface(
     pmode = gmode[compact]  # per pixel, 0-based into MODES
     labels = (pmode + 1).reshape(ny, nx).astype(np.uint8)
 
+    lap("grain modes")
     # --- heights per mode -------------------------------------------------------------------
     h = crack.ravel().copy()
     g = compact
@@ -419,7 +446,7 @@ def make_surface(
     # ductile
     sel = pmode == 2
     if sel.any():
-        dim = dimple_field((ny, nx), px, fs, streams[7]).ravel()
+        dim = dimple_field((ny, nx), px, fs, streams[7], mask=sel.reshape(ny, nx)).ravel()
         h[sel] = crack.ravel()[sel] + dim[sel]
 
     # fatigue
@@ -479,7 +506,9 @@ def make_surface(
     if fs.edge_rounding_um > 0:
         height = ndimage.gaussian_filter(height, fs.edge_rounding_um / px)
     height32 = height.astype(np.float32)
+    lap("mode relief")
     sem = render_sem(height32, px, rs, seed=int(streams[9].integers(2**31)))
+    lap("SEM rendering")
 
     counts = np.bincount(labels.ravel(), minlength=len(CLASSES))
     total = float(labels.size)
