@@ -71,6 +71,15 @@ def _no_valid(what: str) -> FractoInputError:
     return FractoInputError(f"The height map has no valid {what} to measure.")
 
 
+def _finite_sum(a: np.ndarray) -> tuple[float, int]:
+    """Sum and count of the finite entries (fast path when all are finite)."""
+    total = float(np.sum(a))
+    if math.isfinite(total):
+        return total, int(a.size)
+    ok = np.isfinite(a)
+    return float(np.sum(a, where=ok)), int(np.count_nonzero(ok))
+
+
 def _axis_lengths(z: np.ndarray, step: float, axis: int) -> tuple[float, int]:
     """Sum of true segment lengths and number of valid segments along `axis` (0 or 1)."""
     total = 0.0
@@ -79,16 +88,18 @@ def _axis_lengths(z: np.ndarray, step: float, axis: int) -> tuple[float, int]:
     for r0 in range(0, n, _CHUNK_ROWS):
         if axis == 1:
             block = np.asarray(z[r0 : r0 + _CHUNK_ROWS], dtype=np.float64)
-            dz = np.diff(block, axis=1)
+            seg = np.diff(block, axis=1)
         else:
             block = np.asarray(z[r0 : r0 + _CHUNK_ROWS + 1], dtype=np.float64)
             if block.shape[0] < 2:
                 break
-            dz = np.diff(block, axis=0)
-        ok = np.isfinite(dz)
-        dz = dz[ok]
-        total += float(np.sum(np.sqrt(step * step + dz * dz)))
-        count += int(dz.size)
+            seg = np.diff(block, axis=0)
+        seg *= seg
+        seg += step * step
+        np.sqrt(seg, out=seg)  # segment lengths, NaN where an end is not measured
+        t, c = _finite_sum(seg)
+        total += t
+        count += c
     return total, count
 
 
@@ -249,6 +260,17 @@ def profile_length_ratio_mean(
     return float(np.mean(values))
 
 
+def _tri(a: np.ndarray, b: np.ndarray, dx: float, dy: float) -> np.ndarray:
+    """Twice the triangle area √((dy·a)² + (dx·b)² + (dx·dy)²); overwrites `a` and `b`."""
+    a *= dy
+    a *= a
+    b *= dx
+    b *= b
+    a += b
+    a += (dx * dy) ** 2
+    return np.sqrt(a, out=a)
+
+
 def triangulated_area(z: np.ndarray, dx: float, dy: float) -> tuple[float, float]:
     """True and projected area (µm²) of the triangulated surface over valid cells.
 
@@ -281,12 +303,11 @@ def triangulated_area(z: np.ndarray, dx: float, dy: float) -> tuple[float, float
     for r0 in range(0, ny - 1, _CHUNK_ROWS):
         b = np.asarray(z[r0 : r0 + _CHUNK_ROWS + 1], dtype=np.float64)
         z00, z10, z01, z11 = b[:-1, :-1], b[:-1, 1:], b[1:, :-1], b[1:, 1:]
-        t1 = np.sqrt((dy * (z10 - z00)) ** 2 + (dx * (z01 - z00)) ** 2 + cell * cell)
-        t2 = np.sqrt((dy * (z01 - z11)) ** 2 + (dx * (z10 - z11)) ** 2 + cell * cell)
-        s = t1 + t2
-        ok = np.isfinite(s)
-        true_area += 0.5 * float(np.sum(s[ok]))
-        n_cells += int(np.count_nonzero(ok))
+        t1 = _tri(z10 - z00, z01 - z00, dx, dy)
+        t1 += _tri(z01 - z11, z10 - z11, dx, dy)
+        t, c = _finite_sum(t1)
+        true_area += 0.5 * t
+        n_cells += c
     return true_area, n_cells * cell
 
 
