@@ -9,9 +9,9 @@
 For a self-affine surface D = 3 − H (Voss 1988; Mandelbrot, Passoja & Paullay
 1984). Each estimator returns a `FractalEstimate` with the dimension, the
 lateral range it was fitted over (in the units of dx and dy: µm, or pixels
-when the caller passes 1), the R² of the log-log fit, the Hurst exponent and
-the method name. Inputs are form-removed height maps in µm with NaN where not
-measured.
+when the caller passes 1), the R² of the fit, the Hurst exponent, the method
+name and the valid fraction of the map. Inputs are form-removed height maps
+in µm with NaN where not measured.
 
 References
 ----------
@@ -34,10 +34,14 @@ from fracto.errors import FractoInputError
 
 __all__ = [
     "FractalEstimate",
+    "cube_counts",
+    "fill_missing",
     "fractal_dimension_cube",
     "fractal_dimension_psd",
     "fractal_dimension_variogram",
     "fractal_dimensions",
+    "radial_psd",
+    "structure_function",
 ]
 
 
@@ -56,7 +60,9 @@ class FractalEstimate:
         (µm, or pixels when dx = dy = 1): wavelengths 2π/q for the PSD, lags
         for the variogram, box sides for cube counting.
     r2 : float
-        Coefficient of determination of the log-log straight-line fit.
+        Coefficient of determination of the fit in log-log space (PSD: the
+        weighted straight line; variogram: the model A·r^(2H) + B + C·r²;
+        cube counting: the straight line).
     hurst : float
         Hurst exponent H = 3 − D.
     method : str
