@@ -88,6 +88,15 @@ def surface_normals(
         raise FractoInputError("The pixel spacing must be positive.")
     valid = np.isfinite(z)
     zf = np.where(valid, z, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        gx, gy, bad = _slopes(z, zf, valid, dx, dy, scale_um)
+        inv = 1.0 / np.sqrt(1.0 + gx * gx + gy * gy)
+        n = np.stack((-gx * inv, -gy * inv, inv), axis=-1)
+    n[bad] = np.nan
+    return n
+
+
+def _slopes(z, zf, valid, dx, dy, scale_um):
     if scale_um is None or scale_um <= 0:
         # 3x3 least-squares plane: mean over 3 rows of the central difference.
         w = valid.astype(np.float64)
@@ -116,20 +125,18 @@ def surface_normals(
         gx, gy, norm = _gaussian_plane_slopes(zf, w, sx, sy)
         gx, gy = gx / dx, gy / dy
         bad = ~valid | (norm < 0.2)
-    inv = 1.0 / np.sqrt(1.0 + gx * gx + gy * gy)
-    n = np.stack((-gx * inv, -gy * inv, inv), axis=-1)
-    n[bad] = np.nan
-    return n
+    return gx, gy, bad
 
 
 def _gaussian_plane_slopes(
     zf: np.ndarray, w: np.ndarray, sx: float, sy: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Slopes (per pixel) of the Gaussian-weighted least-squares line fits along x
-    and along y over each window, with weights w (0 at missing points).
+    """Slopes (per pixel) of the Gaussian-weighted least-squares plane fit over
+    each window, with weights w (0 at missing points).
 
-    slope = (S_xz - S_x S_z / S) / (S_xx - S_x^2 / S), all sums weighted by
-    g(x) g(y) w; exact on planes, whatever the kernel truncation.
+    The normal equations of z = a + b x + c y with sums weighted by
+    g(x) g(y) w, solved per pixel; exact on planes whatever the kernel
+    truncation, also at the map's edges and next to holes.
     """
 
     def kern(sig: float, power: int) -> np.ndarray:
@@ -138,18 +145,44 @@ def _gaussian_plane_slopes(
         g = np.exp(-0.5 * (x / sig) ** 2)
         return g * x**power
 
-    def sep(a: np.ndarray, px: int, py: int) -> np.ndarray:
-        out = ndimage.correlate1d(a, kern(sx, px), axis=1, mode="constant")
-        return ndimage.correlate1d(out, kern(sy, py), axis=0, mode="constant")
+    def cx(a: np.ndarray, power: int) -> np.ndarray:
+        return ndimage.correlate1d(a, kern(sx, power), axis=1, mode="constant")
 
+    def cy(a: np.ndarray, power: int) -> np.ndarray:
+        return ndimage.correlate1d(a, kern(sy, power), axis=0, mode="constant")
+
+    ny, nx = zf.shape
     wz = zf * w
-    s0 = sep(w, 0, 0)
-    sz = sep(wz, 0, 0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sxv, sxx, sxz = sep(w, 1, 0), sep(w, 2, 0), sep(wz, 1, 0)
-        gx = (sxz - sxv * sz / s0) / (sxx - sxv * sxv / s0)
-        syv, syy, syz = sep(w, 0, 1), sep(w, 0, 2), sep(wz, 0, 1)
-        gy = (syz - syv * sz / s0) / (syy - syv * syv / s0)
+    yz = cy(wz, 0)
+    sz, sxz = cx(yz, 0), cx(yz, 1)
+    syz = cy(cx(wz, 0), 1)
+    if w.all():
+        # weights all one: the weight sums are outer products of 1-D profiles
+        def prof(n: int, sig_power: tuple) -> np.ndarray:
+            return ndimage.correlate1d(np.ones(n), kern(*sig_power), mode="constant")
+
+        gx0, gx1, gx2 = (prof(nx, (sx, k)) for k in (0, 1, 2))
+        gy0, gy1, gy2 = (prof(ny, (sy, k)) for k in (0, 1, 2))
+        s0 = np.outer(gy0, gx0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            gx = (sxz - np.outer(gy0, gx1) * sz / s0) / np.outer(gy0, gx2 - gx1 * gx1 / gx0)
+            gy = (syz - np.outer(gy1, gx0) * sz / s0) / np.outer(gy2 - gy1 * gy1 / gy0, gx0)
+    else:
+        # full weighted plane fit: with holes the window is no longer symmetric
+        yw = cy(w, 0)
+        sxv, sxx = cx(yw, 1), cx(yw, 2)
+        xw = cx(w, 0)
+        s0, syv, syy = cy(xw, 0), cy(xw, 1), cy(xw, 2)
+        sxy = cy(cx(w, 1), 1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cxx = sxx - sxv * sxv / s0
+            cyy = syy - syv * syv / s0
+            cxy = sxy - sxv * syv / s0
+            cxz = sxz - sxv * sz / s0
+            cyz = syz - syv * sz / s0
+            det = cxx * cyy - cxy * cxy
+            gx = (cxz * cyy - cyz * cxy) / det
+            gy = (cyz * cxx - cxz * cxy) / det
     g0 = kern(sx, 0).sum() * kern(sy, 0).sum()
     return gx, gy, s0 / g0
 
@@ -681,6 +714,17 @@ class FacetResult:
         }
 
 
+def _hist(values: np.ndarray, edges: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """Weighted histogram on equal bins starting at edges[0] (np.histogram's
+    convention: the last bin includes its right edge), by bincount."""
+    width = edges[1] - edges[0]
+    nb = len(edges) - 1
+    k = np.floor((values - edges[0]) / width).astype(np.int64)
+    k[values == edges[-1]] = nb - 1
+    sel = (k >= 0) & (k < nb)
+    return np.bincount(k[sel], weights=weights[sel], minlength=nb)[:nb]
+
+
 def facet_analysis(
     z_um: np.ndarray,
     dx: float,
@@ -745,9 +789,9 @@ def facet_analysis(
         float(np.sum(tsel * w_true[ok]) / np.sum(w_true[ok])) if ok.any() else float("nan")
     )
     te = np.arange(0.0, 90.0 + tilt_bin_deg, tilt_bin_deg)
-    th, _ = np.histogram(tsel, bins=te, weights=w_true[ok])
+    th = _hist(tsel, te, w_true[ok])
     ae = np.arange(0.0, 360.0 + azimuth_bin_deg, azimuth_bin_deg)
-    ah, _ = np.histogram(az[ok], bins=ae, weights=w_true[ok])
+    ah = _hist(az[ok], ae, w_true[ok])
     tot = w_true[ok].sum()
     th = th / tot if tot > 0 else th
     ah = ah / tot if tot > 0 else ah
