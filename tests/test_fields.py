@@ -24,9 +24,9 @@ def _circular_acf(z: np.ndarray) -> np.ndarray:
 
 def test_gaussian_field_acf_is_exp_minus_r2_over_tau2():
     # Analytic: ACF(r) = exp(-(r/tau)^2), so exp(-1/4), exp(-1), exp(-4) at r = tau/2, tau, 2 tau.
-    # Sampling error of a sample ACF (Bartlett's formula in 2-D): var ≈ (1/N²)·Σ_m ρ(m)² ≈
-    # (π τ²/2)/N² (the sum of exp(-2 r²/τ²) over the lattice), i.e. σ ≈ 0.0098 for
-    # N = 1024, τ = 8 px. Averaging x and y lags, a 0.04 tolerance is about 4σ.
+    # Sampling error of a sample ACF (leading term of Bartlett's formula, in 2-D; the other
+    # terms only lower it): var ≲ (1/N²)·Σ_m ρ(m)² ≈ (π τ²/2)/N² (the sum of exp(-2 r²/τ²)
+    # over the lattice), i.e. σ ≲ 0.0098 for N = 1024, τ = 8 px. A 0.04 tolerance is ≳ 4σ.
     tau = 8.0
     z = gaussian_correlated_field((1024, 1024), tau, 1.0, 1.0, rms_um=2.0, seed=3)
     acf = _circular_acf(z)
@@ -50,7 +50,7 @@ def test_gaussian_field_rms_mean_dtype_and_seed():
 def test_gaussian_field_anisotropic_and_rotated_acf():
     # Analytic: ACF = exp(-(u/τx)² - (v/τy)²); with τx = 6, τy = 12 the ACF is e^-1 at 6 px
     # along x and at 12 px along y; rotated by 90°, the axes swap. Tolerance as above
-    # (σ ≈ 0.012 for τx·τy = 72 px², 1024²; 0.05 ≈ 4σ).
+    # (σ ≲ √(π·τx·τy/2)/N ≈ 0.010 for τx·τy = 72 px², N = 1024; 0.05 ≈ 5σ).
     z = gaussian_correlated_field((1024, 1024), 6.0, 1.0, 1.0, anisotropy=2.0, seed=5)
     acf = _circular_acf(z)
     assert acf[0, 6] == pytest.approx(math.exp(-1), abs=0.05)
@@ -66,6 +66,7 @@ def test_gaussian_field_anisotropic_and_rotated_acf():
 
 def test_gaussian_field_physical_units():
     # Correlation length in µm, not pixels: τ = 2 µm at dx = 0.25 µm is 8 px (analytic ACF).
+    # σ ≲ √(π·64/2)/512 ≈ 0.020 (as above); 0.06 ≈ 3σ.
     z = gaussian_correlated_field((512, 512), 2.0, 0.25, 0.25, seed=1)
     acf = _circular_acf(z)
     assert 0.5 * (acf[0, 8] + acf[8, 0]) == pytest.approx(math.exp(-1), abs=0.06)
