@@ -143,6 +143,31 @@ def test_plane_preserved_where_kernel_is_complete_and_border_bias_analytic(path:
     assert bias == pytest.approx(slope * sigma * math.sqrt(2 / math.pi), rel=0.05)
 
 
+def test_first_order_edges_keep_a_plane_everywhere(path: str) -> None:
+    # Analytic: a Gaussian-weighted local plane fit (first-order normalised
+    # convolution, Knutsson & Westin 1993) reproduces any plane exactly, at the
+    # borders and beside holes; where the kernel is complete its first moments
+    # vanish by symmetry and it equals the zero-order filter.
+    cutoff, dx, dy = 30.0, 0.5, 0.4
+    ny, nx = 180, 150
+    y, x = np.mgrid[0:ny, 0:nx].astype(float)
+    z = -2.0 + 0.3 * x * dx + 0.15 * y * dy
+    zh = z.copy()
+    zh[_holes(z.shape, 8)] = np.nan
+    mean = gaussian_mean_surface(zh, cutoff, dx, dy, edge_order=1)
+    assert np.isfinite(mean).all()
+    assert np.max(np.abs(mean - z)) < 1e-9
+    assert np.nanmax(np.abs(l_filter(zh, cutoff, dx, dy, edge_order=1))) < 1e-9
+    rng = np.random.default_rng(1)
+    noise = rng.normal(size=z.shape)
+    m0 = gaussian_mean_surface(noise, cutoff, dx, dy)
+    m1 = gaussian_mean_surface(noise, cutoff, dx, dy, edge_order=1)
+    bx, by = round(cutoff / dx), round(cutoff / dy)
+    inner = (slice(by, -by), slice(bx, -bx))
+    np.testing.assert_allclose(m1[inner], m0[inner], atol=1e-12)
+    assert np.max(np.abs(m1 - m0)) > 1e-3  # they do differ at the borders
+
+
 def test_fft_path_matches_scipy_gaussian_filter1d() -> None:
     # Reference library: scipy.ndimage.gaussian_filter1d with mode="constant" and the
     # same radius is the direct convolution; the FFT path must reproduce it.
@@ -232,6 +257,8 @@ def test_condition_surface_order_and_record() -> None:
     assert res2.processing["steps"] == ["despike", "form"]
     assert res2.processing["form"]["order"] == 3
     assert res2.processing["s_filter"] == {"applied": False}
+    res3 = condition_surface(z, 0.5, 0.5, l_filter_um=20.0, edge_order=1)
+    assert "local plane fit" in res3.processing["l_filter"]["edge_handling"]
 
 
 @pytest.mark.parametrize(
@@ -244,6 +271,7 @@ def test_condition_surface_order_and_record() -> None:
         {"s_filter_um": 1e6},  # longer than the map
         {"l_filter_um": -3.0},
         {"l_filter_um": float("nan")},
+        {"l_filter_um": 10.0, "edge_order": 2},
     ],
 )
 def test_condition_surface_rejects_bad_settings(kwargs: dict) -> None:
