@@ -176,6 +176,8 @@ def dense_parallax(
     dis.setGradientDescentIterations(16)
     dis.setVariationalRefinementIterations(5)
     fwd = dis.calc(ua, ub, None)
+    # the backward flow only checks the forward one: a sparser patch grid is enough
+    dis.setPatchStride(patch_stride_px + 1)
     bwd = dis.calc(ub, ua, None)
     ny, nx = a.shape
     gx, gy = np.meshgrid(np.arange(nx, dtype=np.float32), np.arange(ny, dtype=np.float32))
