@@ -568,6 +568,10 @@ def fractal_dimension_cube(
        (box counting on self-affine fractals and its crossover).
     .. [2] B. B. Mandelbrot, "Self-affine fractals and fractal dimension",
        *Physica Scripta* 32 (1985) 257-260 (local versus global dimension).
+    .. [3] T. Gneiting, H. Ševčíková and D. B. Percival, "Estimators of
+       fractal dimension: assessing the roughness of time series and spatial
+       data", *Statistical Science* 27 (2012) 247-277 (box counting biased
+       against variogram-type estimators; cited from memory).
     """
     z = _check_map(z, dx, dy)
     fr = _check_fit_range(fit_range)
