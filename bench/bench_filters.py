@@ -61,6 +61,7 @@ def _steps(z: np.ndarray, lc: float) -> dict:
         "remove_form poly:3": lambda: remove_form(z, "poly", order=3),
         "remove_form robust": lambda: remove_form(z, "robust"),
         "l_filter n/5 (FFT path)": lambda: l_filter(z, lc, 1.0, 1.0),
+        "l_filter n/5 edge_order=1": lambda: l_filter(z, lc, 1.0, 1.0, edge_order=1),
         "s_filter 5 px (direct path)": lambda: s_filter(z, 5.0, 1.0, 1.0),
         "remove_spikes 3x3": lambda: remove_spikes(z),
         "areal_profile_parameters x": lambda: areal_profile_parameters(z, 1.0, 1.0),

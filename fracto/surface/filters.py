@@ -16,7 +16,10 @@ contribute and nothing is biased towards zero at the borders. This is the
 zero-order moment retention end correction (ISO/TS 16610-28, from memory):
 a constant is kept exactly everywhere, a plane exactly wherever the kernel
 support is complete; at a border or a hole a sloped surface is shifted by
-slope × (centroid offset of the remaining weights).
+slope × (centroid offset of the remaining weights). ``edge_order=1`` fits a
+Gaussian-weighted local plane instead (first-order normalised convolution),
+which keeps any plane everywhere and equals order 0 where the kernel is
+complete.
 
 Short kernels use scipy.ndimage.gaussian_filter1d; long ones the same sampled
 kernel through a zero-padded real FFT (scipy.fft.rfft) in blocks of lines,
