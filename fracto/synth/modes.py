@@ -99,12 +99,16 @@ class FractureSettings:
         Spacing of fatigue striations (one per cycle).
     striation_height_um : float
         Peak-to-valley height of a striation.
+    debris_per_um2 : float
+        Number density of small loose fragments lying on the surface.
+    debris_um : float
+        Mean diameter of the fragments.
     edge_rounding_um : float
         σ of a Gaussian smoothing of the final map: edges and steps are
         rounded over about this length, as real ones are (0 = sharp).
     """
 
-    crack_roughness: float = 0.25
+    crack_roughness: float = 0.45
     crack_direction_deg: float | None = None
     cleavage_family: str = "100"
     river_spacing: float = 0.2
@@ -123,6 +127,8 @@ class FractureSettings:
     striation_spacing_um: float = 0.4
     striation_height_um: float = 0.08
     edge_rounding_um: float = 0.1
+    debris_per_um2: float = 0.003
+    debris_um: float = 0.25
 
     def __post_init__(self) -> None:
         if self.cleavage_family not in CLEAVAGE_FAMILIES:

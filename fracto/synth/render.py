@@ -58,9 +58,9 @@ class RenderSettings:
     secant_cap: float = 3.5
     edge_gain: float = 0.25
     edge_sigma_um: float = 0.06
-    edge_glow_gain: float = 0.5
-    edge_glow_um: float = 0.35
-    detector_strength: float = 0.7
+    edge_glow_gain: float = 1.2
+    edge_glow_um: float = 0.6
+    detector_strength: float = 0.9
     detector_azimuth_deg: float = 120.0
     detector_elevation_deg: float = 30.0
     detector_shadow: float = 0.45
@@ -69,10 +69,10 @@ class RenderSettings:
     valley_radius_um: float = 1.2
     valley_depth_um: float = 0.25
     blur_um: float = 0.05
-    dose: float | None = 800.0
+    dose: float | None = 300.0
     line_jitter: float = 0.01
     auto_level: bool = True
-    median_level: float = 0.3
+    median_level: float = 0.38
     brightness: float = 0.0
     contrast: float = 1.0
     gamma: float = 1.0

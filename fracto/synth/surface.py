@@ -390,6 +390,30 @@ def make_surface(
     stays = rng.uniform(size=n_g) < p_stay
     sel = pmode == 0
     h[sel] = np.where(stays[g[sel]], z_top[sel], z_bot[sel])
+    # Where the face crossed is shared with another intergranular grain of the section
+    # that went the same way (both stay / both pulled out), the crack runs on along
+    # that grain's faces: the boundary between them becomes an inclined facet
+    # instead of a vertical cliff. A few passes follow chains of such grains.
+    if sel.any():
+        compact_of = np.full(len(poly.seeds_um), -1, np.int64)
+        compact_of[present] = np.arange(n_g)
+        pix = np.flatnonzero(sel)
+        st = stays[g[pix]]
+        nb = np.where(st, _f_top[pix], _f_bot[pix])
+        zcur = h[pix]
+        for _ in range(3):
+            cn = np.where(nb >= 0, compact_of[np.maximum(nb, 0)], -1)
+            ok = cn >= 0
+            ok[ok] &= (gmode[cn[ok]] == 0) & (stays[cn[ok]] == st[ok])
+            if not ok.any():
+                break
+            zt2, zb2, ft2, fb2 = column_extent(poly, nb[ok], x[pix[ok]], y[pix[ok]])
+            new_z = np.where(st[ok], zt2, zb2)
+            zcur[ok] = new_z
+            nb_new = np.full(pix.size, -1, np.int64)
+            nb_new[ok] = np.where(st[ok], ft2, fb2)
+            nb = nb_new
+        h[pix] = zcur
 
     # transgranular cleavage
     sel = pmode == 1
@@ -502,6 +526,29 @@ def make_surface(
         if opened.any():
             depth = 0.35 * d_nom
             height = np.where(opened, height - depth, height)
+
+    if fs.debris_per_um2 > 0:
+        # loose fragments: small faceted bumps (half-octahedra) at random sites
+        drng = streams[10]
+        nd = int(drng.poisson(fs.debris_per_um2 * extent[0] * extent[1]))
+        if nd:
+            r_um = 0.5 * fs.debris_um * np.exp(0.4 * drng.standard_normal(nd))
+            cy_d = drng.uniform(0, ny, nd)
+            cx_d = drng.uniform(0, nx, nd)
+            for k in range(nd):
+                rp = r_um[k] / px
+                i0, i1 = int(max(cy_d[k] - rp - 1, 0)), int(min(cy_d[k] + rp + 2, ny))
+                j0, j1 = int(max(cx_d[k] - rp - 1, 0)), int(min(cx_d[k] + rp + 2, nx))
+                if i1 <= i0 or j1 <= j0:
+                    continue
+                sub_y, sub_x = np.mgrid[i0:i1, j0:j1]
+                dist1 = np.abs(sub_y + 0.5 - cy_d[k]) + np.abs(sub_x + 0.5 - cx_d[k])
+                bump = np.maximum(rp - dist1, 0.0) * px * 1.2
+                base = height[i0:i1, j0:j1]
+                top = base.max() if bump.max() > 0 else 0.0
+                height[i0:i1, j0:j1] = np.where(
+                    bump > 0, np.maximum(base, top + bump - bump.max() * 0.3), base
+                )
 
     if fs.edge_rounding_um > 0:
         height = ndimage.gaussian_filter(height, fs.edge_rounding_um / px)
