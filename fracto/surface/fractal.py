@@ -429,7 +429,7 @@ def fractal_dimension_variogram(
     ----------
     .. [1] R. F. Voss, in *The Science of Fractal Images*, Springer, 1988.
     .. [2] J. Schmittbuhl, J.-P. Vilotte and S. Roux, "Reliability of
-       self-affine measurements", *Phys. Rev. E* 51 (1995) 131-147.
+       self-affine measurements", *Phys. Rev. E* 51 (1995) 131-147 (from memory).
     """
     z = _check_map(z, dx, dy)
     fr = _check_fit_range(fit_range)

@@ -20,7 +20,8 @@ References
    *ASM Handbook Vol. 12, Fractography*, ASM International, 1987, pp. 193-210.
 .. [3] J. R. Pickens and J. Gurland, "Metallographic characterization of
    fracture surface profiles on sectioning planes", in *Proc. 4th Int. Congress
-   for Stereology*, NBS Special Publication 431, 1976, pp. 269-272.
+   for Stereology*, NBS Special Publication 431, 1976, pp. 269-272
+   (publication details from memory).
 .. [4] ISO 25178-2:2012, Geometrical product specifications (GPS) — Surface
    texture: Areal — Part 2, clause 4.3.2 (Sdr, developed interfacial area ratio).
 """

@@ -21,7 +21,8 @@ References
 .. [2] B. N. J. Persson, O. Albohr, U. Tartaglino, A. I. Volokitin and
    E. Tosatti, "On the nature of surface roughness with application to contact
    mechanics, sealing, rubber friction and adhesion", *J. Phys.: Condens.
-   Matter* 17 (2005) R1-R62 (roll-off of the PSD, wavenumber q = 2π/λ).
+   Matter* 17 (2005) R1-R62 (roll-off of the PSD, wavenumber q = 2π/λ;
+   details from memory).
 """
 
 from __future__ import annotations
