@@ -1,0 +1,149 @@
+"""``fracto classify``: mode map and mode fractions of an SEM fractograph."""
+
+from __future__ import annotations
+
+import click
+
+from fracto.classes import MODES, UNCLASSIFIED
+
+
+def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_size, settings):
+    from fracto import CAUTION, __version__
+
+    fr = res.fractions.to_dict()
+    fractions = {}
+    for name in (*MODES, *[c for c in res.classes if c not in MODES], UNCLASSIFIED):
+        fractions[name] = fr.get(name, {"value": 0.0, "ci95": [0.0, 0.0]})
+    q = res.quality.to_dict()
+    ps = pixel_size.to_dict()
+    ps["scale"] = res.features.scale.to_dict()
+    return {
+        "fractions": fractions,
+        "model": {
+            "path": str(model_path),
+            "sha256": sha,
+            "feature_set_version": model.feature_set_version_,
+            "classes": list(res.classes),
+        },
+        "image": {
+            "path": str(image_path),
+            "shape": list(image_info.get("shape", res.label_map.shape)),
+            "banner": image_info.get("banner"),
+        },
+        "pixel_size": ps,
+        "quality": q,
+        "regions": res.to_dict()["regions"],
+        "settings": {**settings, "bootstrap": res.fractions.settings()},
+        "seed": res.seed,
+        "version": __version__,
+        "caution": CAUTION,
+    }
+
+
+def format_table(d: dict) -> str:
+    lines = [f"{d['image']['path']}  ({d['image']['shape'][1]} x {d['image']['shape'][0]} px)"]
+    lines.append(f"{'mode':<16}{'fraction':>10}   95 % interval")
+    for name, v in d["fractions"].items():
+        lo, hi = v["ci95"]
+        lines.append(f"{name:<16}{v['value']:>10.3f}   [{lo:.3f}, {hi:.3f}]")
+    q = d["quality"]
+    verdict = "fit to score" if q["fit_to_score"] else "NOT fit to score"
+    lines.append(
+        f"quality: {verdict}; focus {q['focus_laplacian_variance']:.3g}, "
+        f"clipped {q['clipped_fraction']:.1%}, noise {q['noise_sigma']:.3f}"
+    )
+    lines.extend(f"  - {r}" for r in q["reasons"])
+    lines.append(f"scale: {d['pixel_size']['scale']['note']}")
+    lines.append(f"model: {d['model']['path']} (sha256 {d['model']['sha256'][:12]}...)")
+    lines.append(d["caution"])
+    return "\n".join(lines)
+
+
+@click.command("classify")
+@click.argument("image", type=click.Path(dir_okay=False))
+@click.option(
+    "--height-map", type=click.Path(dir_okay=False), help="Height map of the same field."
+)
+@click.option("--pixel-size", help="Pixel size, e.g. 0.1um (overrides the file's calibration).")
+@click.option("--banner", default="auto", show_default=True, help="auto, none, bottom:N or top:N.")
+@click.option(
+    "--model", "model_path", type=click.Path(dir_okay=False), help="Model file (.skops)."
+)
+@click.option("--trust", is_flag=True, help="Load a model holding types fracto does not expect.")
+@click.option("--overlay", type=click.Path(dir_okay=False), help="Write an overlay PNG here.")
+@click.option("--labels", type=click.Path(dir_okay=False), help="Write the label PNG here.")
+@click.option("--threshold", type=float, help="Probability below which a region is unclassified.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the bootstrap.")
+@click.option("--n-boot", type=int, default=1000, show_default=True, help="Bootstrap replicates.")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
+def command(
+    image,
+    height_map,
+    pixel_size,
+    banner,
+    model_path,
+    trust,
+    overlay,
+    labels,
+    threshold,
+    seed,
+    n_boot,
+    as_json,
+) -> None:
+    """Mode map and area fractions (95 % block-bootstrap interval) of IMAGE."""
+    import numpy as np
+
+    from fracto.errors import FractoInputError
+    from fracto.io import PixelSize, read_height_map
+    from fracto.io.safe import dumps_json
+    from fracto.modes.model import default_model_path, load_model, sha256_of
+    from fracto.modes.overlay import write_labels, write_overlay
+    from fracto.modes.pipeline import classify_image
+    from fracto.modes.training import read_grey_image
+
+    ps_given = PixelSize.parse(pixel_size) if pixel_size else None
+    mpath = model_path or default_model_path()
+    model = load_model(mpath, trust=trust)
+    img, ps, info = read_grey_image(image, banner=banner, pixel_size=ps_given)
+    height = None
+    if height_map:
+        hm = read_height_map(height_map, pixel_size=ps_given)
+        height = np.asarray(hm.z_um, dtype=np.float64)
+        if not ps.calibrated and hm.pixel_size.calibrated:
+            ps = hm.pixel_size
+        if height.shape != img.shape:
+            raise FractoInputError(
+                f"The height map ({height.shape[1]} x {height.shape[0]} px) and the image "
+                f"({img.shape[1]} x {img.shape[0]} px) must cover the same grid."
+            )
+    res = classify_image(
+        img,
+        model,
+        pixel_size_um=ps.x_um if ps.calibrated else None,
+        height_um=height,
+        threshold=threshold,
+        seed=seed,
+        n_boot=n_boot,
+    )
+    settings = {
+        "threshold": res.threshold,
+        "banner": banner,
+        "height_map": height_map,
+        "n_boot": n_boot,
+    }
+    d = _result_dict(
+        res,
+        image_path=image,
+        image_info=info,
+        model_path=mpath,
+        sha=sha256_of(mpath),
+        model=model,
+        pixel_size=ps,
+        settings=settings,
+    )
+    if overlay:
+        fr = {k: v["value"] for k, v in d["fractions"].items()}
+        write_overlay(overlay, img, res.label_map, res.classes, fractions=fr, title=str(image))
+    if labels:
+        write_labels(labels, res.label_map, res.classes)
+    click.echo(dumps_json(d) if as_json else format_table(d))
