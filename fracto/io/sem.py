@@ -8,26 +8,34 @@ finds it from row statistics, ``"bottom:N"`` / ``"top:N"`` crop N rows,
 Banner detection (fracto's own method)
 --------------------------------------
 A pixel is *flat* when the grey levels in a horizontal window of
-``max(7, width // 40)`` pixels centred on it span at most 0.03 (of full
-scale): banner backgrounds are flat, fractograph texture and detector noise
-are not. For each candidate banner height ``k`` (1.5 % to 40 % of the frame)
-measured from an edge, the band of ``k`` edge rows is accepted when
+``max(7, width // 40)`` pixels centred on it span at most 0.03 of full scale:
+banner backgrounds are flat; fractograph texture and detector noise are not.
+Working inwards from an edge (bottom first, then top):
 
-1. the mean flat fraction of the band is at least 0.5 and every band row but
-   a tenth has flat pixels on at least 10 % of its width (text rows keep
-   background between glyphs);
-2. the rows just inside the boundary are image: the mean flat fraction of
-   the next ``min(20, max(4, k))`` rows is at most 0.25 and none of the first
-   three exceeds 0.4 (a sharp boundary, not a gradual shadow or glare);
-3. the flat background spans the width: each of 8 column segments is flat on
-   at least 25 % of the band's pixels;
-4. the band holds marks (text, scale bar) that differ from its background by
-   more than 0.25 on at least 0.2 % of its pixels.
+1. the background level ``bg`` is the commonest flat grey level (a 64-bin
+   mode) in the outer 15 % of rows; some row among the outer ``2 * kmin``
+   rows must be at least half flat (``kmin`` = max(4, 1.5 % of the height));
+2. rows are *strong* (>= 50 % flat, or >= 90 % within 0.05 of ``bg``:
+   margins, separator lines) or *weak* (>= 3 % flat or >= 30 % near ``bg``:
+   rows crossed by text); the banner runs to the last strong row reached
+   through gaps of at most max(8, 20 % of the height) rows with at most two
+   rows that are neither, and must be between ``kmin`` and 40 % of the height;
+3. the boundary may move up to four rows outwards to where consecutive rows
+   differ most (JPEG ringing hides the last banner rows);
+4. the ``min(20, max(4, k))`` rows beyond the boundary must look like image
+   (mean flat fraction <= 0.25, mean near-``bg`` fraction <= 0.5, none of the
+   first three rows > 40 % flat), and the boundary must be sharp (the mean of
+   max(flat, near-bg) fractions drops by >= 0.4 across three rows each side);
+5. the band must be mostly background (mean of max(flat, near-bg) >= 0.5,
+   mean flat >= 0.2), background must cover >= 30 % of each of 8 column
+   segments (a strip across the whole width), and >= 0.2 % of its pixels must
+   be marks (text, scale bar) differing from ``bg`` by more than 0.25.
 
-Among accepted heights the one with the largest contrast between band and
-image flat fractions wins; the bottom is tried before the top. A frame with
-no accepted band is kept whole, so shadowed or glaring edges, which lack the
-flat background, the sharp boundary or the marks, are not cropped.
+A frame with no accepted band is kept whole: shadowed or glaring edges lack
+the flat background, the sharp straight boundary or the marks, and are not
+cropped. On the synthetic test set of the bench script this finds banners of
+2.5-15 % of the height in several fonts and polarities (JPEG quality 75
+included) and crops none of the banner-free textures.
 
 Grey conversion of colour files uses the ITU-R BT.601 luma weights
 0.299 R + 0.587 G + 0.114 B (alpha dropped); 16-bit data are scaled by
@@ -56,6 +64,7 @@ MIN_SEM_SIDE = 16
 LUMA_BT601 = (0.299, 0.587, 0.114)
 FLAT_RANGE = 0.03
 MARK_CONTRAST = 0.25
+BACKGROUND_TOL = 0.05
 
 
 @dataclass(frozen=True)
@@ -196,14 +205,65 @@ def _flat_mask(g: np.ndarray) -> np.ndarray:
     return (maximum_filter1d(g, win, axis=1) - minimum_filter1d(g, win, axis=1)) <= FLAT_RANGE
 
 
-def _band_ok(g_band: np.ndarray, flat_band: np.ndarray) -> bool:
-    """Checks 3 and 4 of the module docstring on an edge band (edge row first)."""
-    segs = np.array_split(np.arange(g_band.shape[1]), 8)
-    if min(float(flat_band[:, s].mean()) for s in segs) < 0.25:
-        return False
-    bg = float(np.median(g_band[flat_band]))
-    marks = np.abs(g_band - bg) > MARK_CONTRAST
-    return float(marks.mean()) >= 0.002
+def _detect_side(g: np.ndarray, flat: np.ndarray, kmin: int, kmax: int) -> int:
+    """Banner height at the edge that is row 0 of `g` (0 when there is none)."""
+    h = g.shape[0]
+    rowf = flat.mean(axis=1)
+    if float(rowf[: 2 * kmin].max()) < 0.5:  # no plain background near the edge
+        return 0
+    # Background: the commonest flat grey level near the edge (a mode, not a median, so
+    # that a separator line at the edge does not pull it between two levels).
+    n_bg = max(2 * kmin, int(0.15 * h))
+    vals = g[:n_bg][flat[:n_bg]]
+    hist = np.bincount(np.clip((vals * 64).astype(np.int64), 0, 63), minlength=64)
+    top = int(np.argmax(hist))
+    sel = vals[np.clip((vals * 64).astype(np.int64), 0, 63) == top]
+    bg = float(np.median(sel))
+    near = np.abs(g - bg) <= BACKGROUND_TOL
+    bgf = near.mean(axis=1)
+    like = np.maximum(rowf, bgf)
+    # Banner rows: "strong" rows of plain background (margins, separator lines) and, between
+    # them, "weak" rows crossed by text, which keep some background. Image rows are neither.
+    strong = (rowf >= 0.5) | (bgf >= 0.9)
+    weak = (rowf >= 0.03) | (bgf >= 0.3)
+    max_gap = max(8, int(0.2 * h))
+    last, gap, odd = -1, 0, 0
+    for r in range(min(h, kmax + 1)):
+        if strong[r]:
+            last, gap, odd = r, 0, 0
+            continue
+        gap += 1
+        if not weak[r]:
+            odd += 1
+        if gap > max_gap or odd > 2:
+            break
+    k = last + 1
+    if k < kmin or k > kmax:
+        return 0
+    # Refine outwards: JPEG ringing can hide the last banner rows; the boundary is where
+    # consecutive rows differ most within four rows beyond the run.
+    lo, hi = k, min(h - 1, k + 4)
+    diffs = np.abs(np.diff(g[lo - 1 : hi + 1], axis=0)).mean(axis=1)
+    k = lo + int(np.argmax(diffs))
+    w = min(20, max(4, k))
+    if k + w > h:
+        return 0
+    beyond = slice(k, k + w)
+    if rowf[beyond].mean() > 0.25 or bgf[beyond].mean() > 0.5 or rowf[k : k + 3].max() > 0.4:
+        return 0
+    # A sharp boundary: banner-like inside, image-like outside, within three rows.
+    if like[k - 3 : k].mean() - like[k : k + 3].mean() < 0.4:
+        return 0
+    band_g, band_near = g[:k], near[:k]
+    if like[:k].mean() < 0.5 or rowf[:k].mean() < 0.2:
+        return 0
+    segs = np.array_split(np.arange(g.shape[1]), 8)
+    if min(float(band_near[:, sg].mean()) for sg in segs) < 0.3:
+        return 0
+    marks = np.abs(band_g - bg) > MARK_CONTRAST
+    if float(marks.mean()) < 0.002:
+        return 0
+    return k
 
 
 def detect_banner(image: np.ndarray) -> dict:
@@ -221,39 +281,16 @@ def detect_banner(image: np.ndarray) -> dict:
     """
     g = np.asarray(image, dtype=np.float32)
     h = g.shape[0]
-    none = {"side": None, "rows": 0, "detected": False}
-    if h < 32 or g.shape[1] < 16:
-        return none
-    flat = _flat_mask(g)
-    rowf = flat.mean(axis=1)
-    kmin = max(4, round(0.015 * h))
-    kmax = int(0.4 * h)
-    best: tuple[float, str, int] | None = None
-    for side in ("bottom", "top"):
-        r = rowf[::-1] if side == "bottom" else rowf
-        csum = np.concatenate(([0.0], np.cumsum(r)))
-        low = np.concatenate(([0], np.cumsum(r < 0.1)))
-        for k in range(kmin, kmax + 1):
-            w = min(20, max(4, k))
-            if k + w > h:
-                break
-            band = csum[k] / k
-            if band < 0.5 or low[k] > 0.1 * k:
-                continue
-            above = (csum[k + w] - csum[k]) / w
-            if above > 0.25 or r[k : k + 3].max() > 0.4:
-                continue
-            score = band - above
-            if best is not None and score <= best[0]:
-                continue
-            sl = slice(h - k, h) if side == "bottom" else slice(0, k)
-            if _band_ok(g[sl], flat[sl]):
-                best = (score, side, k)
-        if best is not None:
-            break
-    if best is None:
-        return none
-    return {"side": best[1], "rows": int(best[2]), "detected": True}
+    if h >= 32 and g.shape[1] >= 16:
+        flat = _flat_mask(g)
+        kmin = max(4, round(0.015 * h))
+        kmax = int(0.4 * h)
+        for side in ("bottom", "top"):
+            gg, ff = (g[::-1], flat[::-1]) if side == "bottom" else (g, flat)
+            k = _detect_side(gg, ff, kmin, kmax)
+            if k:
+                return {"side": side, "rows": int(k), "detected": True}
+    return {"side": None, "rows": 0, "detected": False}
 
 
 _BANNER_SPEC = re.compile(r"^\s*(bottom|top)\s*:\s*(\d+)\s*$", re.IGNORECASE)
