@@ -22,7 +22,7 @@ from fracto.surface.areal import (
 
 
 def sinusoid(amplitude: float, wavelength: float, dx: float, periods: int, ny: int = 8):
-    x = np.arange(int(round(periods * wavelength / dx))) * dx
+    x = np.arange(round(periods * wavelength / dx)) * dx
     row = amplitude * np.sin(2 * np.pi * x / wavelength)
     return np.tile(row, (ny, 1))
 

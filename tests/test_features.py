@@ -195,3 +195,11 @@ def test_feature_parameters_bad_input():
         feature_parameters(np.zeros((5, 5)), 1.0, 1.0, pruning=5.0)
     with pytest.raises(FractoInputError):
         feature_parameters(np.zeros((5, 5)), -1.0, 1.0)
+
+
+def test_two_workers_give_identical_results():
+    # Determinism check: threading hills and dales must not change any number.
+    rng = np.random.default_rng(21)
+    z = ndi.gaussian_filter(rng.standard_normal((120, 100)), 2.0)
+    z[rng.random(z.shape) < 0.02] = np.nan
+    assert feature_parameters(z, 1.0, 1.0, workers=2) == feature_parameters(z, 1.0, 1.0)

@@ -534,13 +534,26 @@ class MaterialRatioCurve:
             out += float(np.sum(self.heights[b * _BLOCK : i], dtype=np.float64))
         return out
 
+    def _first_at_or_above(self, c: float) -> int:
+        """Index of the first sorted height >= c (exact for float64 c, no upcast copy)."""
+        c32 = np.float32(c)
+        side = "right" if float(c32) < c else "left"
+        return int(np.searchsorted(self.heights, c32, side=side))
+
+    def _first_above(self, c: float) -> int:
+        """Index of the first sorted height > c (exact for float64 c, no upcast copy)."""
+        c32 = np.float32(c)
+        side = "left" if float(c32) > c else "right"
+        return int(np.searchsorted(self.heights, c32, side=side))
+
     def smr(self, c: float | np.ndarray) -> float | np.ndarray:
         """Areal material ratio Smr(c) in %: share of the area at or above height `c`.
 
         `c` is a height in µm measured from the mean plane.
         """
         c = np.asarray(c, dtype=np.float64)
-        above = self.n - np.searchsorted(self.heights, c, side="left")
+        first = np.array([self._first_at_or_above(float(v)) for v in c.ravel()])
+        above = self.n - first.reshape(c.shape)
         out = 100.0 * above / self.n
         return float(out) if out.ndim == 0 else out
 
@@ -564,14 +577,14 @@ class MaterialRatioCurve:
 
     def _excess_above(self, c: float) -> float:
         """(1/n) Σ max(z − c, 0)."""
-        i = int(np.searchsorted(self.heights, c, side="right"))
+        i = self._first_above(c)
         total = float(self._prefix[-1])
         top = total - float(self._sum_below(i))
         return (top - (self.n - i) * c) / self.n
 
     def _deficit_below(self, c: float) -> float:
         """(1/n) Σ max(c − z, 0)."""
-        i = int(np.searchsorted(self.heights, c, side="left"))
+        i = self._first_at_or_above(c)
         return (i * c - float(self._sum_below(i))) / self.n
 
     def vm(self, p: float) -> float:
@@ -768,6 +781,7 @@ def areal_parameters(
     s: float = 0.2,
     pruning: float = 0.05,
     features: bool = True,
+    workers: int = 1,
 ) -> dict[str, float]:
     """The full ISO 25178-2 parameter set of a levelled, filtered map.
 
@@ -786,6 +800,8 @@ def areal_parameters(
         Wolf pruning threshold as a fraction of Sz for the feature parameters.
     features : bool
         Include the feature parameters (Spd, Spc, S10z, S5p, S5v).
+    workers : int
+        Threads for the feature parameters (hills and dales at the same time).
 
     Returns
     -------
@@ -807,5 +823,5 @@ def areal_parameters(
     if features:
         from fracto.surface.features import feature_parameters
 
-        out.update(feature_parameters(z, dx, dy, pruning=pruning))
+        out.update(feature_parameters(z, dx, dy, pruning=pruning, workers=workers))
     return out

@@ -67,6 +67,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import ndimage as ndi
 
 from fracto.errors import FractoInputError
 from fracto.surface.areal import _check_map, _check_spacing, _valid_mean
@@ -88,18 +89,25 @@ def _steepest_ascent(f: np.ndarray) -> np.ndarray:
     parent = np.empty(ny * nx, dtype=itype)
     lin = np.array([oy * nx + ox for oy, ox in _OFFSETS], dtype=itype)
     step = max(1, _CHUNK // nx)
-    best = np.empty((step, nx), dtype=f.dtype)
     code = np.empty((step, nx), dtype=np.int8)
     take = np.empty((step, nx), dtype=bool)
     for r0 in range(0, ny, step):
         r1 = min(ny, r0 + step)
         m = r1 - r0
-        bb, cc, tt = best[:m], code[:m], take[:m]
-        bb.fill(-np.inf)
+        cc, tt = code[:m], take[:m]
+        # highest value in the 3 × 3 window (C, separable)
+        top = ndi.maximum_filter(fp[r0 : r1 + 2], size=3, mode="nearest")[1:-1, 1:-1]
+        cc.fill(4)
         for k, (oy, ox) in enumerate(_OFFSETS):
+            if k == 4:
+                continue
             nb = fp[1 + r0 + oy : 1 + r1 + oy, 1 + ox : 1 + ox + nx]
-            np.greater_equal(nb, bb, out=tt)  # later (larger index) candidates win ties
-            np.copyto(bb, nb, where=tt)
+            np.equal(nb, top, out=tt)
+            if k < 4:
+                # an earlier (smaller-index) neighbour wins only if it is strictly higher
+                # than the pixel itself; ties with the pixel go to the pixel
+                tt &= cc == 4
+                tt &= nb > f[r0:r1]
             np.copyto(cc, k, where=tt)
         out = parent[r0 * nx : r1 * nx]
         np.take(lin, cc.ravel(), out=out)
@@ -109,11 +117,54 @@ def _steepest_ascent(f: np.ndarray) -> np.ndarray:
 
 def _jump(parent: np.ndarray) -> np.ndarray:
     """Pointer jumping to the roots of a forest (in place)."""
-    act = np.flatnonzero(parent != parent[parent])
+    act = np.flatnonzero(parent[parent] != parent)
+    p = parent[act]
     while act.size:
-        parent[act] = parent[parent[act]]
-        act = act[parent[act] != parent[parent[act]]]
+        pp = parent[p]
+        parent[act] = pp
+        keep = parent[pp] != pp
+        act = act[keep]
+        p = pp[keep]
     return parent
+
+
+def _jump_neighbour_forest(parent: np.ndarray, nx: int, rows_per_block: int = 64) -> np.ndarray:
+    """Pointer jumping for a forest whose pointers go to 8-neighbours (in place).
+
+    First within row blocks that fit in cache (pointers leaving the block are
+    held fixed), then over the whole array, where chains are now short.
+    """
+    n = parent.size
+    blk = rows_per_block * nx
+    for s0 in range(0, n, blk):
+        s1 = min(n, s0 + blk)
+        loc = parent[s0:s1] - s0
+        out = (loc < 0) | (loc >= s1 - s0)
+        ar = np.arange(s1 - s0, dtype=loc.dtype)
+        target = parent[s0:s1][out]
+        loc[out] = ar[out]
+        _jump(loc)
+        # a pixel whose local root points out of the block takes that outside target
+        ext = np.full(s1 - s0, -1, dtype=loc.dtype)
+        ext[out] = target
+        e = ext[loc]
+        res = loc + s0
+        np.copyto(res, e, where=e >= 0)
+        parent[s0:s1] = res
+    return _jump(parent)
+
+
+def _sortable_u32(w: np.ndarray) -> np.ndarray:
+    """Monotone map of float32 to uint32 (order-preserving, NaN-free input)."""
+    b = np.ascontiguousarray(w, dtype=np.float32).view(np.uint32)
+    neg = (b >> 31).astype(bool)
+    return np.where(neg, ~b, b | np.uint32(0x80000000))
+
+
+def _from_sortable_u32(u: np.ndarray) -> np.ndarray:
+    u = u.astype(np.uint32)
+    pos = (u >> 31).astype(bool)
+    return np.where(pos, u & np.uint32(0x7FFFFFFF), ~u).view(np.float32)
 
 
 def _dedupe_max(key: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -125,6 +176,40 @@ def _dedupe_max(key: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     ws = w[order]
     starts = np.flatnonzero(np.concatenate(([True], ks[1:] != ks[:-1])))
     return ks[starts], np.maximum.reduceat(ws, starts)
+
+
+def _dedupe_pairs(a: np.ndarray, b: np.ndarray, w: np.ndarray, n_nodes: int):
+    """(min, max) label pairs, unique, with their largest float32 weight.
+
+    Runs of equal consecutive pairs are first reduced in one linear pass; then
+    (pair, weight) are packed into one uint64 when the local pair range fits in
+    32 bits, so a plain sort (no argsort) finds the maximum of every pair.
+    """
+    lo = np.minimum(a, b)
+    hi = np.maximum(a, b)
+    brk = np.empty(lo.size, dtype=bool)
+    brk[0] = True
+    np.not_equal(lo[1:], lo[:-1], out=brk[1:])
+    brk[1:] |= hi[1:] != hi[:-1]
+    starts = np.flatnonzero(brk)
+    if starts.size < lo.size:
+        w = np.maximum.reduceat(w, starts)
+        lo, hi = lo[starts], hi[starts]
+    lo0, hi0 = int(lo.min()), int(hi.min())
+    span = int(hi.max()) - hi0 + 1
+    if (int(lo.max()) - lo0 + 1) * span < 2**32:
+        key = (lo - lo0).astype(np.uint64)
+        key *= np.uint64(span)
+        key += (hi - hi0).astype(np.uint64)
+        key <<= np.uint64(32)
+        key |= _sortable_u32(w)
+        key.sort()
+        k = key >> np.uint64(32)
+        last = np.flatnonzero(np.concatenate((k[1:] != k[:-1], [True])))
+        kk = k[last].astype(np.int64)
+        ww = _from_sortable_u32(key[last] & np.uint64(0xFFFFFFFF))
+        return (kk // span + lo0) * n_nodes + (kk % span + hi0), ww
+    return _dedupe_max(lo.astype(np.int64) * n_nodes + hi, w)
 
 
 def _region_graph(f: np.ndarray, labels: np.ndarray, n_nodes: int):
@@ -152,14 +237,15 @@ def _region_graph(f: np.ndarray, labels: np.ndarray, n_nodes: int):
             i = np.flatnonzero(sel)
             if i.size == 0:
                 continue
-            a = la[i].astype(np.int64)
-            b = lb[i].astype(np.int64)
+            a = la[i]
+            b = lb[i]
             w = np.minimum(ff[s0 + i], ff[s0 + o + i])
             ok = (a >= 0) & (b >= 0)
             if not ok.all():
                 a, b, w = a[ok], b[ok], w[ok]
-            key = np.minimum(a, b) * n_nodes + np.maximum(a, b)
-            k, ww = _dedupe_max(key, w)
+                if a.size == 0:
+                    continue
+            k, ww = _dedupe_pairs(a, b, w, n_nodes)
             keys.append(k)
             weights.append(ww)
     if not keys:
@@ -223,21 +309,31 @@ def peak_dynamics(f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
        persistence and simplification.
     """
     f = np.asarray(f, dtype=np.float32)
-    valid = ~np.isnan(f)
-    f = np.where(valid, f, -np.inf).astype(np.float32)
+    invalid = np.isnan(f)
+    has_nan = bool(invalid.any())
+    if has_nan:
+        f = np.where(invalid, np.float32(-np.inf), f)
+    else:
+        invalid = None
     n = f.size
     parent = _steepest_ascent(f)
-    flat_valid = valid.ravel()
     idx = np.arange(n, dtype=parent.dtype)
-    parent[~flat_valid] = idx[~flat_valid]
-    roots = np.flatnonzero((parent == idx) & flat_valid)
-    del idx
-    _jump(parent)
+    if has_nan:
+        bad = invalid.ravel()
+        parent[bad] = idx[bad]
+        is_root = parent == idx
+        is_root &= ~bad
+    else:
+        is_root = parent == idx
+    roots = np.flatnonzero(is_root)
+    del idx, is_root
+    _jump_neighbour_forest(parent, f.shape[1])
     comp = np.full(n, -1, dtype=np.int32 if roots.size < 2**31 else np.int64)
     comp[roots] = np.arange(roots.size, dtype=comp.dtype)
-    labels = comp[parent]
+    labels = np.take(comp, parent)
     del parent, comp
-    labels[~flat_valid] = -1
+    if has_nan:
+        labels[bad] = -1
     n_nodes = roots.size
     u, v, w = _region_graph(f, labels, n_nodes)
     del labels
@@ -263,7 +359,9 @@ def peak_dynamics(f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
             break
         tgt = np.arange(m)
         tgt[src] = dst
-        hooked = np.unique(src)
+        mark = np.zeros(m, dtype=bool)
+        mark[src] = True
+        hooked = np.flatnonzero(mark)
         death[ids[hooked]] = mw[hooked]
         if hooked.size < max(64, m // 50):
             # few merges per round: finish sequentially
@@ -306,7 +404,7 @@ def _select(f: np.ndarray, threshold: float) -> np.ndarray:
 
 
 def feature_parameters(
-    z: np.ndarray, dx: float, dy: float, *, pruning: float = 0.05
+    z: np.ndarray, dx: float, dy: float, *, pruning: float = 0.05, workers: int = 1
 ) -> dict[str, float]:
     """Feature parameters of ISO 25178-2 from Wolf-pruned hills and dales.
 
@@ -319,6 +417,9 @@ def feature_parameters(
     pruning : float
         Wolf pruning threshold as a fraction of Sz (ISO 25178-3 default 5 %,
         from memory).
+    workers : int
+        Threads: with 2 or more, hills and dales are segmented at the same time
+        (NumPy releases the GIL in the heavy steps; the results are identical).
 
     Returns
     -------
@@ -354,9 +455,17 @@ def feature_parameters(
     zmax, zmin = float(np.nanmax(z)), float(np.nanmin(z))
     h = pruning * (zmax - zmin)
     z32 = z.astype(np.float32)
-    peaks = _select(z32, h)
-    np.negative(z32, out=z32)
-    pits = _select(z32, h)
+    if int(workers) >= 2:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=2) as pool:
+            fut_pits = pool.submit(_select, np.negative(z32), h)
+            peaks = _select(z32, h)
+            pits = fut_pits.result()
+    else:
+        peaks = _select(z32, h)
+        np.negative(z32, out=z32)
+        pits = _select(z32, h)
     del z32
     area = n_valid * dx * dy
     ny, nx = z.shape
