@@ -175,13 +175,21 @@ def _lattice(values: np.ndarray, slack: float, name: str, axis: str) -> tuple:
             f"'{name}' has x,y,z points whose {axis} values do not lie on a regular grid; "
             "resample them onto a grid first."
         )
+    n_pos = int(k.max()) + 1
+    if u.size < 0.5 * n_pos:
+        # Distinct values on a much finer lattice than they fill: scattered, not gridded
+        # (or a point off the grid that makes the lattice step tiny).
+        raise FractoInputError(
+            f"'{name}' has x,y,z points whose {axis} values do not lie on a regular grid "
+            f"({u.size} distinct values over {n_pos} grid steps); resample them onto a grid."
+        )
     idx = np.rint((values - u[0]) / step).astype(np.int64)
     if np.any(np.abs(values - (u[0] + idx * step)) > tol):
         raise FractoInputError(
             f"'{name}' has x,y,z points whose {axis} values do not lie on a regular grid; "
             "resample them onto a grid first."
         )
-    return idx, step, float(u[0]), int(k.max()) + 1
+    return idx, step, float(u[0]), n_pos
 
 
 def _xyz_to_grid(cols: np.ndarray, tok_cols: list, name: str) -> tuple:
@@ -430,7 +438,7 @@ def write_xyz(
     d = delimiter
     out = [f"x_um{d}y_um{d}z_um"]
     out += [
-        f"{j * dx!r}{d}{i * dy!r}{d}{z[i, j]!r}"
+        f"{j * dx!r}{d}{i * dy!r}{d}{float(z[i, j])!r}"
         for i, j in zip(ii.tolist(), jj.tolist(), strict=True)
     ]
     write_text_atomic(path, "\n".join(out) + "\n")
