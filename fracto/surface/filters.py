@@ -271,8 +271,8 @@ def gaussian_mean_surface(
         measured points. 1: a Gaussian-weighted local plane fit (first-order
         normalised convolution) — keeps any plane everywhere; identical to 0
         where the kernel is complete (the first moments vanish there), so the
-        transmission is the same. Order 1 costs about 3.5 times the time
-        and holds five extra map-sized arrays.
+        transmission is the same. Order 1 takes two to three times as long
+        and needs about seven map-sized arrays at its peak.
 
     Returns
     -------

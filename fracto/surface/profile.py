@@ -59,7 +59,7 @@ RSM_WIDTH_FRACTION = 0.01
 _LINE_BLOCK = 256
 
 #: Seven-point first-derivative weights (correlation order, divide by Δx).
-_D7 = np.array([1.0, -9.0, 45.0, 0.0, -45.0, 9.0, -1.0]) / 60.0
+_D7 = np.array([-1.0, 9.0, -45.0, 0.0, 45.0, -9.0, 1.0]) / 60.0
 
 
 def _check_inputs(dx: float, cutoff_um: float | None, n_sampling: int) -> None:
