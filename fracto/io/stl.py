@@ -10,7 +10,8 @@ Raster (fracto convention): pixel centres lie on ``x = x_min + j * step`` and
 smallest vertex coordinates; a mesh made from a height grid with its vertices
 at the grid nodes therefore rasterises back onto the same nodes. The step is
 ``stl_pixel_size_um`` (or the explicit ``pixel_size``), else the median length
-of the triangle edges projected on the xy plane (source ``"STL mesh"``).
+of the triangle edges projected on the xy plane, rounded to 6 significant
+digits (STL holds float32 coordinates; source ``"STL mesh"``).
 Coordinates are in ``z_unit``.
 """
 
@@ -94,9 +95,13 @@ def rasterise_top(
     u = (v[:, :, 0] - x0) / step
     w = (v[:, :, 1] - y0) / step
     z = v[:, :, 2]
+    # Tolerance in pixels: STL stores float32 coordinates, so a vertex meant to sit on a
+    # pixel centre may miss it by a few float32 ulps of the absolute coordinate.
+    mag = float(np.abs(v[:, :, :2]).max()) if v.size else 0.0
+    eps = 1e-9 + 4.0 * float(np.finfo(np.float32).eps) * mag / step
     if shape is None:
-        nx = int(np.floor(u.max() + 1e-6)) + 1
-        ny = int(np.floor(w.max() + 1e-6)) + 1
+        nx = int(np.floor(u.max() + eps)) + 1
+        ny = int(np.floor(w.max() + eps)) + 1
     else:
         ny, nx = shape
     if nx * ny > MAX_PIXELS:
@@ -110,7 +115,6 @@ def rasterise_top(
     den = (w2 - w3) * (u1 - u3) + (u3 - u2) * (w1 - w3)
     keep = np.abs(den) > 1e-12 * (np.ptp(u, axis=1) * np.ptp(w, axis=1) + 1e-300)
     keep &= np.isfinite(den) & np.isfinite(z).all(axis=1)
-    eps = 1e-9
     j0 = np.ceil(u.min(axis=1) - eps).astype(np.int64)
     j1 = np.floor(u.max(axis=1) + eps).astype(np.int64)
     i0 = np.ceil(w.min(axis=1) - eps).astype(np.int64)
@@ -119,6 +123,7 @@ def rasterise_top(
     i0 = np.maximum(i0, 0)
     j1 = np.minimum(j1, nx - 1)
     i1 = np.minimum(i1, ny - 1)
+    ext = np.maximum(np.ptp(u, axis=1), np.ptp(w, axis=1))
     wj = j1 - j0 + 1
     wi = i1 - i0 + 1
     keep &= (wj > 0) & (wi > 0)
@@ -145,7 +150,8 @@ def rasterise_top(
         a = ((w2[tt] - w3[tt]) * (px - u3[tt]) + (u3[tt] - u2[tt]) * (py - w3[tt])) / d
         b = ((w3[tt] - w1[tt]) * (px - u3[tt]) + (u1[tt] - u3[tt]) * (py - w3[tt])) / d
         cc = 1.0 - a - b
-        tol = -1e-9
+        # Barycentric tolerance: `eps` pixels relative to the triangle's extent.
+        tol = -eps / np.maximum(ext[tt], 1.0)
         inside = (a >= tol) & (b >= tol) & (cc >= tol)
         if inside.any():
             zz = a * z[tt, 0] + b * z[tt, 1] + cc * z[tt, 2]
@@ -208,7 +214,9 @@ def read_stl(
         edge = median_edge_length(vectors)
         if not edge > 0:
             raise FractoInputError(f"'{name}' has no triangle with an extent in x and y.")
-        step_um = edge * factor
+        # STL stores float32 (about 7 significant digits): round the estimate to 6 so
+        # that float32 noise in the vertices does not drift the raster off the nodes.
+        step_um = float(f"{edge:.6g}") * factor
         source = "STL mesh"
     grid, (x0, y0) = rasterise_top(vectors, step_um / factor)
     meta = {
