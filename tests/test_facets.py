@@ -120,6 +120,8 @@ def test_facet_to_grain_ratio_and_dict():
         d["summary"]["facet_to_grain_size_ratio"], d["summary"]["mean_facet_diameter_um"] / 9.6
     )
     assert math.isclose(sum(d["tilt_histogram"]["area_fraction"]), 1.0)
+    dist = d["equivalent_diameter_distribution"]
+    assert sum(dist["count"]) == 16 and math.isclose(sum(dist["area_fraction"]), 1.0)
 
 
 def test_lambert_projection_is_equal_area():

@@ -680,6 +680,22 @@ class FacetResult:
         :func:`lambert_projection_density`)."""
         return lambert_projection_density(self.normals, bins=bins)
 
+    def diameter_distribution(self, bins: int = 20) -> dict:
+        """Histogram of the facets' equivalent diameters (from their true areas):
+        number of facets and true-area fraction per bin."""
+        d = np.array([f.equivalent_diameter_um for f in self.facets])
+        a = np.array([f.area_um2 for f in self.facets])
+        if d.size == 0:
+            return {"edges_um": [], "count": [], "area_fraction": []}
+        edges = np.linspace(0.0, float(d.max()) * 1.0001, bins + 1)
+        cnt, _ = np.histogram(d, bins=edges)
+        area, _ = np.histogram(d, bins=edges, weights=a)
+        return {
+            "edges_um": edges.tolist(),
+            "count": cnt.tolist(),
+            "area_fraction": (area / a.sum()).tolist(),
+        }
+
     def summary(self) -> dict:
         diam = np.array([f.equivalent_diameter_um for f in self.facets])
         areas = np.array([f.area_um2 for f in self.facets])
@@ -708,6 +724,7 @@ class FacetResult:
             "dihedral_angles": [
                 {"facet_a": a, "facet_b": b, "angle_deg": ang} for a, b, ang in self.dihedral
             ],
+            "equivalent_diameter_distribution": self.diameter_distribution(),
             "tilt_histogram": {"edges_deg": te.tolist(), "area_fraction": th.tolist()},
             "azimuth_histogram": {"edges_deg": ae.tolist(), "area_fraction": ah.tolist()},
             "settings": dict(self.settings),
