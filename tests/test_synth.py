@@ -406,3 +406,47 @@ def test_cli_writes_and_refuses_bad_text(tmp_path, capsys):
         assert rc == 2, bad
         err = capsys.readouterr().err
         assert err.startswith("fracto: ") and err.count("\n") == 1
+
+
+# ---------------------------------------------------------------- demo_images
+
+
+DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_images"
+
+
+@pytest.mark.skipif(not (DEMO_DIR / "truth.json").exists(), reason="demo_images not built")
+def test_demo_images_consistent():
+    import csv
+
+    truth = json.loads((DEMO_DIR / "truth.json").read_text())
+    rows = list(csv.DictReader(open(DEMO_DIR / "campaign.csv", encoding="utf-8")))
+    temps = {float(r["temperature_C"]) for r in rows}
+    assert len(temps) >= 6 and "transition_temperature_C" in truth
+    assert min(temps) < truth["transition_temperature_C"] < max(temps)
+    for t in temps:  # at least two specimens at every temperature
+        assert len({r["specimen"] for r in rows if float(r["temperature_C"]) == t}) >= 2
+    assert {"sem", "height"} <= {r["kind"] for r in rows}
+    total = sum(p.stat().st_size for p in DEMO_DIR.rglob("*") if p.is_file())
+    assert total < 30e6
+    # the label images hold exactly the fractions given in truth.json
+    for r in rows:
+        if r["kind"] == "labels":
+            lab = cv2.imread(str(DEMO_DIR / r["path"]), cv2.IMREAD_UNCHANGED)
+            counts = np.bincount(lab.ravel(), minlength=len(CLASSES))
+            for i, name in enumerate(CLASSES[1:], start=1):
+                assert truth["files"][r["path"]]["fractions"][name] == counts[i] / lab.size
+
+
+@pytest.mark.skipif(not (DEMO_DIR / "truth.json").exists(), reason="demo_images not built")
+def test_demo_regenerates_byte_identical(tmp_path):
+    # The README's regeneration claim: the first temperature of the demo, made again
+    # with the demo settings, gives byte-identical files (seeds are spawned per specimen).
+    from fracto.synth.campaign import demo_settings
+
+    kw = demo_settings()
+    kw["temperatures_C"] = kw["temperatures_C"][:1]
+    make_campaign(tmp_path / "d", progress=False, **kw)
+    for p in sorted((tmp_path / "d").rglob("*_*.*")):
+        if p.suffix in (".png", ".tif"):
+            rel = p.relative_to(tmp_path / "d")
+            assert p.read_bytes() == (DEMO_DIR / rel).read_bytes(), rel

@@ -35,7 +35,7 @@ from fracto.synth.polycrystal import GrainSize
 from fracto.synth.render import RenderSettings
 from fracto.synth.surface import GENERATOR_VERSION, _png_bytes, make_surface, write_height_tif
 
-__all__ = ["DEMO", "make_campaign", "make_demo"]
+__all__ = ["DEMO", "demo_settings", "make_campaign", "make_demo"]
 
 MANIFEST_COLUMNS = (
     "path",
@@ -265,27 +265,29 @@ DEMO = {
     "specimens_per_temperature": 2,
     "fields_per_specimen": 1,
     "size": 512,
-    "pixel_size_um": 0.1,
+    "pixel_size_um": 0.12,
     "seed": 20261201,
     "toughness_MPa_sqrt_m": (35.0, 180.0),
 }
 
 
+def demo_settings() -> dict:
+    """Keyword arguments of :func:`make_campaign` that make the demo campaign."""
+    d = dict(DEMO)
+    d.update(
+        grain_size=GrainSize("lognormal", 4.5, 0.25),
+        mode_model=ModeModel.steel(
+            width_C=20.0, ig_base=0.12, spatial_correlation=0.4, patch_um=6.0
+        ),
+        fracture=FractureSettings(dimple_um=1.8, dimple_depth_ratio=0.9),
+        render=replace(RenderSettings(), banner=False),
+    )
+    return d
+
+
 def make_demo(outdir: str | os.PathLike, *, force: bool = False, progress: bool = True) -> Path:
     """Write the fictional demo campaign (fixed seeds) into `outdir`; return its manifest."""
-    mm = ModeModel.steel(width_C=20.0, ig_base=0.12, fatigue_fraction=0.0)
-    d = dict(DEMO)
-    return make_campaign(
-        outdir,
-        temperatures_C=d.pop("temperatures_C"),
-        transition_C=d.pop("transition_C"),
-        grain_size=GrainSize("lognormal", 2.5, 0.2),
-        mode_model=mm,
-        render=replace(RenderSettings(), banner=False),
-        force=force,
-        progress=progress,
-        **d,
-    )
+    return make_campaign(outdir, force=force, progress=progress, **demo_settings())
 
 
 def _main(argv: list[str]) -> int:

@@ -63,9 +63,9 @@ class RenderSettings:
     detector_strength: float = 0.9
     detector_azimuth_deg: float = 120.0
     detector_elevation_deg: float = 30.0
-    detector_shadow: float = 0.45
+    detector_shadow: float = 0.35
     shadow_softness_um: float = 0.4
-    valley_strength: float = 0.55
+    valley_strength: float = 0.4
     valley_radius_um: float = 1.2
     valley_depth_um: float = 0.25
     blur_um: float = 0.05
@@ -235,32 +235,19 @@ def _draw_banner(width: int, rows: int, px: float, rng: np.random.Generator) -> 
     kv = float(rng.choice([5.0, 10.0, 15.0, 20.0]))
     wd = float(rng.uniform(5, 15))
     mag = round(127000 / max(field_um, 1e-6) / 10) * 10
-    scale = rows / 60.0
-    text = f"SE  {kv:.1f}kV  WD {wd:.1f}mm  x{mag:,}  FS-{int(rng.integers(100, 999))}"
-    cv2.putText(
-        strip,
-        text,
-        (int(8 * scale) + 2, int(rows * 0.62)),
-        cv2.FONT_HERSHEY_SIMPLEX,
-        0.55 * scale,
-        230,
-        max(1, round(1.2 * scale)),
-        cv2.LINE_AA,
-    )
-    x1 = width - bar_px - int(20 * scale) - 2
-    y = int(rows * 0.68)
-    cv2.rectangle(strip, (x1, y - max(2, rows // 12)), (x1 + bar_px, y), 255, -1)
+    text = f"SE {kv:.0f}kV  WD {wd:.1f}mm  x{mag}  FS-{int(rng.integers(100, 999))}"
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    # text height about 40 % of the strip, shrunk to fit the left 60 % of the width
+    (tw, th), _ = cv2.getTextSize(text, font, 1.0, 1)
+    fs = min(0.4 * rows / th, 0.6 * width / tw)
+    cv2.putText(strip, text, (max(2, rows // 6), int(rows * 0.65)), font, fs, 230, 1, cv2.LINE_AA)
+    x1 = width - bar_px - max(4, rows // 3)
+    y = int(rows * 0.72)
+    cv2.rectangle(strip, (x1, y - max(2, rows // 10)), (x1 + bar_px, y), 255, -1)
     label = f"{bar_um:g} um"
-    cv2.putText(
-        strip,
-        label,
-        (x1, int(rows * 0.38)),
-        cv2.FONT_HERSHEY_SIMPLEX,
-        0.5 * scale,
-        230,
-        max(1, round(scale)),
-        cv2.LINE_AA,
-    )
+    (lw, lh), _ = cv2.getTextSize(label, font, 1.0, 1)
+    ls = min(0.3 * rows / lh, 0.9 * max(bar_px, 10) / lw)
+    cv2.putText(strip, label, (x1, int(rows * 0.42)), font, ls, 230, 1, cv2.LINE_AA)
     return strip.astype(np.float32) / 255.0
 
 

@@ -551,7 +551,8 @@ def make_surface(
                 )
 
     if fs.edge_rounding_um > 0:
-        height = ndimage.gaussian_filter(height, fs.edge_rounding_um / px)
+        # at least one pixel, so steps along oblique boundaries do not alias into dots
+        height = ndimage.gaussian_filter(height, max(fs.edge_rounding_um / px, 1.0))
     height32 = height.astype(np.float32)
     lap("mode relief")
     sem = render_sem(height32, px, rs, seed=int(streams[9].integers(2**31)))
