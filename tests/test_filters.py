@@ -239,6 +239,20 @@ def test_remove_spikes_finds_planted_spikes() -> None:
     assert remove_spikes(noise)[1] <= 1e-3 * noise.size
 
 
+def test_median_network_matches_scipy() -> None:
+    # Reference library: scipy.ndimage.median_filter(size=3, mode="nearest"), also
+    # with ±inf entries (how remove_spikes marks missing neighbours).
+    rng = np.random.default_rng(12)
+    a = rng.normal(size=(300, 77))
+    a[rng.random(a.shape) < 0.1] = np.inf
+    a[rng.random(a.shape) < 0.1] = -np.inf
+    ref = ndimage.median_filter(a, size=3, mode="nearest")
+    np.testing.assert_array_equal(filters._median_filter(a, 3), ref)
+    np.testing.assert_array_equal(
+        filters._median_filter(a[:1], 3), ndimage.median_filter(a[:1], size=3, mode="nearest")
+    )
+
+
 def test_condition_surface_order_and_record() -> None:
     # The chain is form removal then L-filter; compare with the two steps applied by hand.
     rng = np.random.default_rng(2)
