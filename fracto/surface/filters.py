@@ -450,7 +450,8 @@ def remove_spikes(
     median test is common practice for optical height maps (no standard
     prescribes it). Only measured neighbours enter the median (see the code
     comment for how); points with fewer than ``size²//2 + 1`` measured
-    neighbours are not judged.
+    neighbours are not judged. On maps of more than 2^22 judged points the
+    scale comes from a regular subsample of them.
 
     Parameters
     ----------
