@@ -213,3 +213,15 @@ def test_cli_bad_file_exit_2(tmp_path):
     )
     assert proc.returncode == 2
     assert proc.stderr.startswith("fracto: ") and proc.stderr.count("\n") == 1
+
+
+@pytest.mark.parametrize("scale_um", [0.2, 0.4])
+def test_noisy_pyramids_at_a_smoothing_scale(scale_um):
+    # measurement noise (10 nm RMS on 100 nm pixels) with smoothed normals: still the
+    # four {111} faces per pyramid (microfabrication practice, 54.7356 deg), and no extra
+    # "facets" in the bands along the ridges where smoothed normals turn between faces
+    rng = np.random.default_rng(5)
+    z = si_pyramids() + rng.normal(0, 0.01, (384, 384))
+    r = facet_analysis(z, 0.1, 0.1, scale_um=scale_um)
+    assert r.facet_count == 36
+    assert all(abs(f.tilt_deg - SI111_DEG) < 1.0 for f in r.facets)

@@ -389,6 +389,7 @@ def segment_facets(
     min_area_px: int = 50,
     max_merge_rounds: int = 30,
     min_merge_fraction: float = 1e-4,
+    min_half_width_px: float = 1.0,
 ) -> np.ndarray:
     """Planar facets by region growing on the normals.
 
@@ -419,6 +420,11 @@ def segment_facets(
         Smallest facet in pixels.
     max_merge_rounds : int
         Upper bound on merging rounds.
+    min_half_width_px : float
+        A facet must contain a disc of this radius (pixels). With normals
+        smoothed at scale σ, the band along each ridge where the normals turn
+        from one face to the next is about 2σ wide on either side; giving
+        2σ here keeps those bands out (:func:`facet_analysis` does).
     min_merge_fraction : float
         Merging stops when a round would join fewer than this fraction of the
         regions (the tail of rounds that each join a handful of tiny regions
@@ -514,6 +520,15 @@ def segment_facets(
     inner[:, :-1][labels[:, :-1] != labels[:, 1:]] = 0
     interior = np.bincount(inner.ravel(), minlength=count + 1)
     keep = (area >= min_area_px) & (rms <= tol) & (interior >= max(1, min_area_px // 4))
+    if min_half_width_px > 1.0:
+        # a facet must hold a disc of radius min_half_width_px: bands along ridges,
+        # where smoothed normals turn gradually from one face to the next, are thinner
+        edge = (inner == 0) & (labels > 0)
+        depth = ndimage.distance_transform_edt(~edge)
+        deep = np.bincount(
+            labels.ravel(), weights=(depth >= min_half_width_px).ravel(), minlength=count + 1
+        )
+        keep &= deep > 0
     keep[0] = False
     new = np.zeros(count + 1, dtype=np.int64)
     new[keep] = np.arange(1, keep.sum() + 1)
@@ -783,8 +798,9 @@ def facet_analysis(
     Returns
     -------
     FacetResult
-        ``area_weighted_tilt_deg`` is the mean of the pixel tilts weighted by
-        each pixel's inclined (true) area 1/n_z; ``facet_area_weighted_tilt_deg``
+        ``area_weighted_tilt_deg`` is the mean of the pixel tilts (normals at
+        the analysis scale, so smoothing rounds ridges and lowers it) weighted
+        by each pixel's inclined (true) area 1/n_z; ``facet_area_weighted_tilt_deg``
         the mean of the facets' fitted tilts weighted by their true areas.
         Each facet's orientation is the least-squares plane through its own
         heights (not the smoothed normals), its true area the projected area
@@ -813,7 +829,13 @@ def facet_analysis(
     th = th / tot if tot > 0 else th
     ah = ah / tot if tot > 0 else ah
 
-    labels = segment_facets(normals, planarity_tol_deg=planarity_tol_deg, min_area_px=min_area_px)
+    half_width = 2.0 * scale_um / min(dx, dy) if scale_um else 1.0
+    labels = segment_facets(
+        normals,
+        planarity_tol_deg=planarity_tol_deg,
+        min_area_px=min_area_px,
+        min_half_width_px=half_width,
+    )
     count = int(labels.max())
     facets: list[Facet] = []
     dih: list[tuple[int, int, float]] = []
@@ -852,6 +874,7 @@ def facet_analysis(
         "scale_um": scale_um,
         "planarity_tol_deg": planarity_tol_deg,
         "min_area_px": min_area_px,
+        "min_half_width_px": half_width,
         "normals": "3x3 plane fit" if not scale_um else "Gaussian-weighted plane fit",
         "tilt_bin_deg": tilt_bin_deg,
         "azimuth_bin_deg": azimuth_bin_deg,
