@@ -416,10 +416,12 @@ def crack_path(
     References
     ----------
     E. E. Underwood, *Quantitative Stereology*, 1970 (R_L); ASTM E112-13
-    (intercepts); T. Y. Zhang and J. L. Suen, *Commun. ACM* 27, 1984
-    (skeleton, via ``skimage.morphology.skeletonize``).
+    (intercepts); Z. Guo and R. W. Hall, *Commun. ACM* 32, 1989
+    (skeleton by thinning, ``skimage.morphology.thin``; at sharp corners any
+    skeleton cuts the corner, which shortens a zigzag with ±60° segments 120 px
+    long drawn 4 px thick by about 2 %, and ±45° ones by 0.5 %).
     """
-    from skimage.morphology import skeletonize
+    from skimage.morphology import thin
 
     crack = segment_crack(image_or_mask)
     if boundaries is not None:
@@ -428,7 +430,7 @@ def crack_path(
             raise FractoInputError(
                 "The grain-boundary image and the cross-section differ in size."
             )
-    skel = skeletonize(crack)
+    skel = thin(crack)
     path = _main_path(skel)
     length_px, poly = path_length_px(path, tolerance_px=simplify_px)
     p0, p1 = poly[0], poly[-1]
