@@ -120,10 +120,9 @@ class SemImage:
 def _decode_tiff(data: bytes, name: str) -> tuple[np.ndarray, PixelSize | None, str]:
     from fracto.io.tiff import read_tiff_page, tiff_calibration
 
-    arr, page, _ = read_tiff_page(data, name)
+    arr, page, _, order = read_tiff_page(data, name)
     ps, _facts = tiff_calibration(page)
-    photometric = str(getattr(page, "photometric", "")).upper()
-    order = "rgb"
+    photometric = str(getattr(page, "photometric", "")).upper() if order == "rgb" else ""
     if arr.ndim == 3 and arr.shape[0] in (3, 4) and arr.shape[-1] not in (3, 4):
         arr = np.moveaxis(arr, 0, -1)  # planar configuration
     if "PALETTE" in photometric and arr.ndim == 2:

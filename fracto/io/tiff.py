@@ -106,15 +106,38 @@ def _open_tiff(data: bytes, name: str):
         raise FractoInputError(f"'{name}' is not a readable TIFF file.") from exc
 
 
-def read_tiff_page(data: bytes, name: str) -> tuple[np.ndarray, object, int]:
-    """Decode the first page of a TIFF: (array, page, number of pages)."""
+def _cv2_decode(data: bytes) -> np.ndarray | None:
+    import cv2
+
+    try:
+        return cv2.imdecode(np.frombuffer(data, dtype=np.uint8), cv2.IMREAD_UNCHANGED)
+    except cv2.error:
+        return None
+
+
+def read_tiff_page(data: bytes, name: str) -> tuple[np.ndarray, object, int, str]:
+    """Decode the first page of a TIFF: (array, page, number of pages, channel order).
+
+    tifffile decodes uncompressed and some compressed TIFFs; when it lacks the
+    codec (e.g. LZW without the optional imagecodecs package), OpenCV decodes the
+    pixels (channel order ``"bgr"``) while tifffile still supplies the tags.
+    """
     tf = _open_tiff(data, name)
     try:
         if not tf.pages:
             raise FractoInputError(f"'{name}' holds no image.")
         page = tf.pages[0]
-        arr = page.asarray()
-        return arr, page, len(tf.pages)
+        npages = len(tf.pages)
+        try:
+            return page.asarray(), page, npages, "rgb"
+        except Exception as exc:
+            arr = _cv2_decode(data)
+            if arr is None:
+                raise FractoInputError(
+                    f"'{name}' is a TIFF whose image data cannot be decoded (it may be "
+                    "truncated or use an unsupported compression)."
+                ) from exc
+            return arr, page, npages, "bgr"
     except FractoInputError:
         raise
     except Exception as exc:
@@ -152,7 +175,7 @@ def read_tiff_height_map(
     name = os.fspath(path)
     if data is None:
         data = read_file_bytes(path)
-    arr, page, npages = read_tiff_page(data, name)
+    arr, page, npages, _order = read_tiff_page(data, name)
     if arr.dtype.kind != "f":
         raise FractoInputError(
             f"'{name}' holds integer pixel values ({arr.dtype}), which are image grey "
