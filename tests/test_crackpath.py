@@ -38,7 +38,7 @@ def zigzag_image(theta_deg: float, n: int = 600, period: int = 200, thick: int =
     return (img + rng.normal(0, 8, img.shape)).clip(0, 255).astype(np.uint8)
 
 
-@pytest.mark.parametrize("theta", [10.0, 20.0, 30.0, 45.0])
+@pytest.mark.parametrize("theta", [10.0, 20.0, 30.0, 45.0, 60.0])
 def test_zigzag_tortuosity_is_sec_theta(theta):
     # analytic: a straight zigzag at +-theta to its mean path has path/chord = 1/cos(theta)
     r = crack_path(zigzag_image(theta), pixel_size_um=0.5)
