@@ -194,3 +194,24 @@ def test_property_garbage_only_input_errors(tmp_path, blob, prefix):
         read_sdf(p)
     except FractoInputError:
         pass
+
+
+def test_fixed_binary_header_fallback(tmp_path):
+    # The fixed 81-byte header layout is fracto's assumption from memory (documented in
+    # fracto/io/sdf.py); this checks that the reader follows that documented layout.
+    import struct
+
+    z = np.arange(12, dtype="<f4").reshape(3, 4) * 0.5
+    head = struct.pack(
+        "<8s10s12s12sHHddddBBB", b"b1.0", b"someone", b"010120261200", b"010120261200",
+        4, 3, 1e-6, 2e-6, 1e-6, -1.0, 0, 3, 0,
+    )  # fmt: skip
+    assert len(head) == 81
+    p = tmp_path / "fixed.sdf"
+    p.write_bytes(head + z.tobytes())
+    hm = read_sdf(p)
+    np.testing.assert_array_equal(hm.z_um, z.astype(np.float64))
+    assert hm.pixel_size.x_um == pytest.approx(1.0) and hm.pixel_size.y_um == pytest.approx(2.0)
+    p.write_bytes(head + z.tobytes()[:20])
+    with pytest.raises(FractoInputError, match="truncated"):
+        read_sdf(p)

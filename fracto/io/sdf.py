@@ -25,6 +25,11 @@ can be checked against them.
   map), then a ``*`` line. Binary data: the header is the same ASCII lines;
   the little-endian data block starts right after the newline of the ``*``
   line (*assumption*), followed by an optional ``*`` trailer.
+* Reading only: a binary file whose header is not ASCII lines is tried as a
+  fixed 81-byte little-endian header (*assumption*, from memory: version 8
+  chars, ManufacID 10, CreateDate 12, ModDate 12, NumPoints and NumProfiles
+  uint16, Xscale, Yscale, Zscale, Zresolution float64, Compression, DataType,
+  CheckType uint8), the data following at byte 81.
 * Trailer (optional, after the data): ``Key = value`` lines, ended by ``*``;
   fracto writes ``Generator = fracto <version>`` and ``ZUnit = um`` there and
   keeps what it reads in ``metadata["sdf_trailer"]``.
@@ -221,6 +226,47 @@ def _parse_header(data: bytes, name: str) -> tuple[str, dict, int]:
             raise FractoInputError(f"'{name}' has no end to its SDF header.")
 
 
+#: Fixed binary header (assumption, from memory): version 8 chars, ManufacID 10,
+#: CreateDate 12, ModDate 12, NumPoints and NumProfiles uint16, Xscale, Yscale,
+#: Zscale, Zresolution float64, Compression, DataType, CheckType uint8; 81 bytes,
+#: little-endian, no padding.
+_FIXED_HEADER = "<8s10s12s12sHHddddBBB"
+
+
+def _parse_fixed_binary_header(data: bytes) -> tuple[str, dict, int] | None:
+    """Read the fixed 81-byte binary header some binary SDF files may use (see
+    `_FIXED_HEADER`); None when `data` does not look like one."""
+    import struct
+
+    size = struct.calcsize(_FIXED_HEADER)
+    if len(data) < size or data[:1] not in (b"b", b"B"):
+        return None
+    parts = struct.unpack(_FIXED_HEADER, data[:size])
+    version = parts[0].split(b"\x00")[0].decode("ascii", errors="replace").strip()
+    nx, ny, xs, ys, zs, zr, comp, dt, ck = parts[4:]
+    scales = (xs, ys, zs)
+    if nx == 0 or ny == 0 or dt not in SDF_DATATYPES:
+        return None
+    if not all(math.isfinite(v) and 0 <= abs(v) < 1.0 for v in scales) or zs == 0:
+        return None
+    fields = {
+        "manufacid": parts[1].split(b"\x00")[0].decode("ascii", errors="replace").strip(),
+        "createdate": parts[2].decode("ascii", errors="replace"),
+        "moddate": parts[3].decode("ascii", errors="replace"),
+        "numpoints": str(nx),
+        "numprofiles": str(ny),
+        "xscale": repr(xs),
+        "yscale": repr(ys),
+        "zscale": repr(zs),
+        "zresolution": repr(zr),
+        "compression": str(comp),
+        "datatype": str(dt),
+        "checktype": str(ck),
+        "header": "fixed binary",
+    }
+    return version, fields, size
+
+
 def _int_field(fields: dict, key: str, name: str) -> int:
     try:
         v = float(fields[key])
@@ -279,7 +325,13 @@ def read_sdf(
     name = os.fspath(path)
     if data is None:
         data = read_file_bytes(path)
-    version, fields, offset = _parse_header(data, name)
+    try:
+        version, fields, offset = _parse_header(data, name)
+    except FractoInputError:
+        fixed = _parse_fixed_binary_header(data)
+        if fixed is None:
+            raise
+        version, fields, offset = fixed
     for key in _REQUIRED:
         if key not in fields:
             raise FractoInputError(f"'{name}' lacks the SDF header field {key!r}.")
