@@ -8,6 +8,7 @@ from scipy import ndimage as ndi
 from skimage.morphology import h_maxima
 
 from fracto.errors import FractoInputError
+from fracto.surface import features
 from fracto.surface.features import feature_parameters, peak_dynamics
 
 EIGHT = np.ones((3, 3), dtype=bool)
@@ -44,10 +45,16 @@ def brute_force_dynamics(z: np.ndarray) -> dict[int, float]:
     return out
 
 
+@pytest.mark.parametrize("contract_only", [False, True])
 @pytest.mark.parametrize("seed", range(6))
-def test_dynamics_match_brute_force_on_small_random_maps(seed):
+def test_dynamics_match_brute_force_on_small_random_maps(seed, contract_only, monkeypatch):
     # Reference: a direct level-set computation of the dynamics (brute_force_dynamics),
     # independent of the contraction algorithm; random floats have no ties.
+    # contract_only: the contraction rounds run to the end (no sequential finish), so
+    # both code paths are checked.
+    if contract_only:
+        monkeypatch.setattr(features, "_SEQUENTIAL_MIN", 0)
+        monkeypatch.setattr(features, "_SEQUENTIAL_FRACTION", 10**12)
     rng = np.random.default_rng(seed)
     z = ndi.gaussian_filter(rng.standard_normal((22, 19)), 1.0) + 0.05 * rng.standard_normal(
         (22, 19)
@@ -74,11 +81,14 @@ def test_surviving_peaks_match_skimage_h_maxima(seed):
     z = ndi.gaussian_filter(rng.standard_normal((150, 130)), 2.0)
     z += 0.02 * rng.standard_normal(z.shape)
     z = z.astype(np.float32).astype(np.float64)
-    h = 0.05 * (z.max() - z.min())
     _idx, dyn = peak_dynamics(z)
-    ours = int(np.sum((dyn >= h) & (dyn > 0)))
-    _, n_ref = ndi.label(h_maxima(z, h), structure=EIGHT)
-    assert ours == n_ref
+    for frac in (0.005, 0.02, 0.05, 0.1, 0.3):
+        h = frac * (z.max() - z.min())
+        # h_maxima on floats keeps dynamic > h (it subtracts a rounding margin); with
+        # random floats no dynamic equals h, so >= and > agree
+        ours = int(np.sum((dyn >= h) & (dyn > 0)))
+        _, n_ref = ndi.label(h_maxima(z, h), structure=EIGHT)
+        assert ours == n_ref, frac
 
 
 def brute_force_plateau_dynamics(z: np.ndarray) -> dict[int, float]:

@@ -151,12 +151,12 @@ def height_parameters(z: np.ndarray) -> dict[str, float]:
     mean, n = _valid_mean(z)
     s1 = s2 = s3 = s4 = 0.0
     zmax, zmin = -math.inf, math.inf
+    all_valid = n == z.size
     for r0, r1 in _row_blocks(z.shape):
         b = z[r0:r1]
-        v = b[~np.isnan(b)].astype(np.float64)
+        v = np.subtract(b if all_valid else b[~np.isnan(b)], mean, dtype=np.float64).ravel()
         if v.size == 0:
             continue
-        v -= mean
         zmax = max(zmax, float(v.max()))
         zmin = min(zmin, float(v.min()))
         s1 += float(np.abs(v).sum())

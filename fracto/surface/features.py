@@ -75,6 +75,10 @@ from fracto.surface.areal import _check_map, _check_spacing, _valid_mean
 __all__ = ["feature_parameters", "peak_dynamics"]
 
 _CHUNK = 1 << 20
+# finish with the sequential union-find once a contraction round merges fewer
+# than max(_SEQUENTIAL_MIN, nodes // _SEQUENTIAL_FRACTION) nodes
+_SEQUENTIAL_MIN = 64
+_SEQUENTIAL_FRACTION = 50
 
 # neighbour offsets (dy, dx) in ascending order of linear offset, self in the middle
 _OFFSETS = [(-1, -1), (-1, 0), (-1, 1), (0, -1), (0, 0), (0, 1), (1, -1), (1, 0), (1, 1)]
@@ -89,15 +93,15 @@ def _steepest_ascent(f: np.ndarray) -> np.ndarray:
     parent = np.empty(ny * nx, dtype=itype)
     lin = np.array([oy * nx + ox for oy, ox in _OFFSETS], dtype=itype)
     step = max(1, _CHUNK // nx)
-    code = np.empty((step, nx), dtype=np.int8)
     take = np.empty((step, nx), dtype=bool)
     for r0 in range(0, ny, step):
         r1 = min(ny, r0 + step)
         m = r1 - r0
-        cc, tt = code[:m], take[:m]
+        tt = take[:m]
+        out = parent[r0 * nx : r1 * nx].reshape(m, nx)
+        out.fill(0)  # offset of the chosen neighbour; 0 = the pixel itself
         # highest value in the 3 × 3 window (C, separable)
         top = ndi.maximum_filter(fp[r0 : r1 + 2], size=3, mode="nearest")[1:-1, 1:-1]
-        cc.fill(4)
         for k, (oy, ox) in enumerate(_OFFSETS):
             if k == 4:
                 continue
@@ -106,12 +110,10 @@ def _steepest_ascent(f: np.ndarray) -> np.ndarray:
             if k < 4:
                 # an earlier (smaller-index) neighbour wins only if it is strictly higher
                 # than the pixel itself; ties with the pixel go to the pixel
-                tt &= cc == 4
+                tt &= out == 0
                 tt &= nb > f[r0:r1]
-            np.copyto(cc, k, where=tt)
-        out = parent[r0 * nx : r1 * nx]
-        np.take(lin, cc.ravel(), out=out)
-        out += np.arange(r0 * nx, r1 * nx, dtype=itype)
+            np.copyto(out, lin[k], where=tt)
+        out += np.arange(r0 * nx, r1 * nx, dtype=itype).reshape(m, nx)
     return parent
 
 
@@ -355,7 +357,8 @@ def peak_dynamics(f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         hi = (zc[dst] > zc[src]) | ((zc[dst] == zc[src]) & (dst > src))
         sel = hi & (ww == mw[src])
         src, dst = src[sel], dst[sel]
-        if src.size == 0:
+        if src.size == 0:  # cannot happen (the heaviest edge always hooks); stay exact
+            _kruskal_finish(zc, ids, u, v, w, death)
             break
         tgt = np.arange(m)
         tgt[src] = dst
@@ -363,7 +366,7 @@ def peak_dynamics(f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         mark[src] = True
         hooked = np.flatnonzero(mark)
         death[ids[hooked]] = mw[hooked]
-        if hooked.size < max(64, m // 50):
+        if hooked.size < max(_SEQUENTIAL_MIN, m // _SEQUENTIAL_FRACTION):
             # few merges per round: finish sequentially
             _kruskal_finish(zc, ids, u, v, w, death)
             u = u[:0]
