@@ -28,6 +28,7 @@ Layout rules (fracto's own; common practice for instrument exports)
 
 from __future__ import annotations
 
+import itertools
 import os
 import re
 
@@ -95,9 +96,22 @@ def _split(line: str, delim: str | None) -> list[str]:
 
 
 def _to_float(tokens: list[str], name: str, nodata: float | None = None) -> np.ndarray:
-    clean = ["nan" if t.lower() in MISSING_TOKENS else t for t in tokens]
+    try:  # fast path: NumPy parses numbers, 'nan' and 'inf' itself
+        out = np.array(tokens, dtype=np.float64)
+    except ValueError:
+        out = None
+    if out is None:
+        out = _to_float_slow(tokens, name)
+    out[np.isinf(out)] = np.nan
+    if nodata is not None:
+        out[out == nodata] = np.nan
+    return out
+
+
+def _to_float_slow(tokens: list[str], name: str) -> np.ndarray:
+    clean = ["nan" if t.strip().lower() in MISSING_TOKENS else t for t in tokens]
     try:
-        out = np.array(clean, dtype=np.float64)
+        return np.array(clean, dtype=np.float64)
     except ValueError as exc:
         for t in clean:
             try:
@@ -108,10 +122,6 @@ def _to_float(tokens: list[str], name: str, nodata: float | None = None) -> np.n
                     "not-measured mark."
                 ) from exc
         raise FractoInputError(f"'{name}' holds values that are not numbers.") from exc
-    out[np.isinf(out)] = np.nan
-    if nodata is not None:
-        out[out == nodata] = np.nan
-    return out
 
 
 def _is_numeric_line(tokens: list[str]) -> bool:
@@ -142,11 +152,11 @@ def _header_columns(tokens: list[str]) -> dict | None:
     return found
 
 
-def _decimals(tokens: np.ndarray) -> int | None:
+def _decimals(tokens: list[str]) -> int | None:
     """Largest number of printed decimals in `tokens` (None if any uses an exponent)."""
     best = 0
-    for t in tokens:
-        t = str(t)
+    for t in set(tokens):
+        t = t.strip()
         if "e" in t or "E" in t:
             return None
         if "." in t:
@@ -207,7 +217,7 @@ def _xyz_to_grid(cols: np.ndarray, tok_cols: list, name: str) -> tuple:
             f"'{name}' spans a lattice of {nx} x {ny} nodes, too large to read."
         )
     flat = iy * nx + ix
-    if np.unique(flat).size != flat.size:
+    if flat.size and np.bincount(flat, minlength=1).max() > 1:
         raise FractoInputError(f"'{name}' lists the same x,y point more than once.")
     grid = np.full(ny * nx, np.nan)
     grid[flat] = z
@@ -274,15 +284,19 @@ def parse_text(text: str, name: str) -> dict:
             raise FractoInputError(f"'{name}' holds a header line but no data lines.")
     if delim is not None and all(ln.endswith(delim) for ln in lines):
         lines = [ln[: -len(delim)] for ln in lines]
-    rows = [_split(ln, delim) for ln in lines]
+    if delim is not None and delim in "\t;":
+        lines = [ln.replace(",", ".") for ln in lines]  # decimal commas
+    rows = [ln.split(delim) for ln in lines] if delim is not None else [ln.split() for ln in lines]
     ncol = len(rows[0])
-    for i, r in enumerate(rows):
-        if len(r) != ncol:
-            raise FractoInputError(
-                f"'{name}' has rows of different lengths ({ncol} and {len(r)} values, "
-                f"data line {i + 1})."
-            )
-    flat_tokens = [t for r in rows for t in r]
+    lens = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
+    bad_rows = np.nonzero(lens != ncol)[0]
+    if bad_rows.size:
+        i = int(bad_rows[0])
+        raise FractoInputError(
+            f"'{name}' has rows of different lengths ({ncol} and {lens[i]} values, "
+            f"data line {i + 1})."
+        )
+    flat_tokens = list(itertools.chain.from_iterable(rows))
     values = _to_float(flat_tokens, name, nodata).reshape(len(rows), ncol)
     out = {
         "kind": "grid",
@@ -320,9 +334,9 @@ def parse_text(text: str, name: str) -> dict:
     if hdr is not None:
         order = (hdr["x"][0], hdr["y"][0], hdr["z"][0])
         units = {a: hdr[a][1] for a in "xyz"}
-    tok = np.array(flat_tokens, dtype=object).reshape(nrow, ncol)
     cols = values[:, list(order)].T
-    grid, dx, dy, _, _ = _xyz_to_grid(cols, [tok[:, order[0]], tok[:, order[1]]], name)
+    tok_cols = [flat_tokens[order[0] :: ncol], flat_tokens[order[1] :: ncol]]
+    grid, dx, dy, _, _ = _xyz_to_grid(cols, tok_cols, name)
     out.update(kind="xyz", z=grid, dx=dx, dy=dy)
     ux, uy = units.get("x"), units.get("y")
     if ux or uy:
