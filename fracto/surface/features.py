@@ -239,9 +239,19 @@ def _region_graph(f: np.ndarray, labels: np.ndarray, n_nodes: int):
             i = np.flatnonzero(sel)
             if i.size == 0:
                 continue
+            w = np.minimum(ff[s0 + i], ff[s0 + o + i])
+            if ox and oy:
+                # A diagonal pair is redundant when one of the two pixels beside it is
+                # at least as high as its weight: the path through that pixel has the
+                # same bottleneck, so every max-min path value, hence every dynamic,
+                # stays the same without it.
+                side = np.maximum(ff[s0 + i + ox], ff[s0 + i + nx])
+                need = side < w
+                i, w = i[need], w[need]
+                if i.size == 0:
+                    continue
             a = la[i]
             b = lb[i]
-            w = np.minimum(ff[s0 + i], ff[s0 + o + i])
             ok = (a >= 0) & (b >= 0)
             if not ok.all():
                 a, b, w = a[ok], b[ok], w[ok]
