@@ -127,6 +127,9 @@ def rasterise_top(
     wj = j1 - j0 + 1
     wi = i1 - i0 + 1
     keep &= (wj > 0) & (wi > 0)
+    with np.errstate(divide="ignore"):
+        inv = 1.0 / den
+    d23w, d32u, d31w, d13u = w2 - w3, u3 - u2, w3 - w1, u1 - u3
     tri = np.nonzero(keep)[0]
     counts = (wj[tri] * wi[tri]).astype(np.int64)
     # Chunks of triangles whose pair counts sum to about CHUNK_PAIRS.
@@ -145,10 +148,10 @@ def rasterise_top(
         width = wj[tt]
         jj = j0[tt] + k % width
         ii = i0[tt] + k // width
-        px, py = jj.astype(np.float64), ii.astype(np.float64)
-        d = den[tt]
-        a = ((w2[tt] - w3[tt]) * (px - u3[tt]) + (u3[tt] - u2[tt]) * (py - w3[tt])) / d
-        b = ((w3[tt] - w1[tt]) * (px - u3[tt]) + (u1[tt] - u3[tt]) * (py - w3[tt])) / d
+        dx = jj - u3[tt]
+        dy = ii - w3[tt]
+        a = (d23w[tt] * dx + d32u[tt] * dy) * inv[tt]
+        b = (d31w[tt] * dx + d13u[tt] * dy) * inv[tt]
         cc = 1.0 - a - b
         # Barycentric tolerance: `eps` pixels relative to the triangle's extent.
         tol = -eps / np.maximum(ext[tt], 1.0)
