@@ -30,7 +30,7 @@ def format_table(result: dict) -> str:
         v = p["value"]
         text = "n/a" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{v:.6g}"
         unit = p["unit"] or "-"
-        note = f"  ({p['note']})" if "note" in p else ""
+        note = f"  ({p['note']})" if "note" in p and text == "n/a" else ""
         lines.append(f"{name:<26} {text:>14}  {unit}{note}")
     ps = result["pixel_size"]
     cal = (

@@ -141,6 +141,42 @@ def _check_map(z: np.ndarray) -> np.ndarray:
     return z
 
 
+def _fractal_estimates(z: np.ndarray, dx: float, dy: float) -> dict[str, tuple[float, dict]]:
+    """Each fractal estimator on its own: one that cannot fit gives NaN and a note.
+
+    A fitted dimension outside [2, 3] means the surface is not self-affine over the
+    fit range (a Hurst exponent outside [0, 1]); it is withheld rather than reported
+    as a dimension, and the fitted number is kept under ``"fitted_value"``.
+    """
+    from fracto.surface import fractal
+
+    estimators = {
+        "D_psd": fractal.fractal_dimension_psd,
+        "D_variogram": fractal.fractal_dimension_variogram,
+        "D_cube": fractal.fractal_dimension_cube,
+    }
+    out: dict[str, tuple[float, dict]] = {}
+    for key, fn in estimators.items():
+        try:
+            est = fn(z, dx, dy)
+        except FractoInputError as exc:
+            out[key] = (math.nan, {"fit_range": None, "r2": None, "note": str(exc)})
+            continue
+        extra = {"fit_range": list(est.fit_range), "r2": est.r2}
+        value = float(est.value)
+        if not 2.0 <= value <= 3.0:
+            extra["fitted_value"] = value
+            extra["note"] = "not self-affine over the fit range (fitted D outside 2..3)"
+            value = math.nan
+        elif key == "D_cube":
+            extra["note"] = (
+                "biased low where box height ranges are small against box sides; "
+                "D_psd and D_variogram are the primary estimates"
+            )
+        out[key] = (value, extra)
+    return out
+
+
 def measure_surface(
     z_um: np.ndarray,
     pixel_size: PixelSize,
@@ -200,7 +236,7 @@ def measure_surface(
        surface texture parameters.
     .. [4] E. E. Underwood, Quantitative Stereology, Addison-Wesley, 1970.
     """
-    from fracto.surface import areal, features, fractal, profile, ratios
+    from fracto.surface import areal, features, profile, ratios
     from fracto.surface.filters import condition_surface
 
     unknown = set(groups) - set(GROUPS)
@@ -250,14 +286,9 @@ def measure_surface(
     if "fractography" in groups:
         values.update(ratios.fractography_ratios(zc, dx, dy))
     if "fractal" in groups:
-        for key, est in fractal.fractal_dimensions(zc, dx, dy).items():
-            values[key] = est.value
-            d = est.to_dict()
-            extras[key] = {
-                "fit_range": d.get("fit_range"),
-                "r2": d.get("r2"),
-                "fit_range_unit": pixel_size.lateral_unit,
-            }
+        for key, est in _fractal_estimates(zc, dx, dy).items():
+            values[key], extras[key] = est
+            extras[key]["fit_range_unit"] = pixel_size.lateral_unit
 
     params: dict[str, Parameter] = {}
     for key, val in values.items():
