@@ -19,8 +19,10 @@ the exact pixel size in the JSON ImageDescription.
 
 from __future__ import annotations
 
+import contextlib
 import io
 import json
+import logging
 import os
 
 import numpy as np
@@ -97,6 +99,19 @@ def tiff_calibration(page: object) -> tuple[PixelSize | None, dict]:
         return None, facts
 
 
+@contextlib.contextmanager
+def _quiet_tifffile():
+    """Silence tifffile's log warnings about damaged files while we read one (the
+    damage is reported to the user as one FractoInputError sentence instead)."""
+    log = logging.getLogger("tifffile")
+    old = log.level
+    log.setLevel(logging.CRITICAL)
+    try:
+        yield
+    finally:
+        log.setLevel(old)
+
+
 def _open_tiff(data: bytes, name: str):
     import tifffile
 
@@ -122,6 +137,11 @@ def read_tiff_page(data: bytes, name: str) -> tuple[np.ndarray, object, int, str
     codec (e.g. LZW without the optional imagecodecs package), OpenCV decodes the
     pixels (channel order ``"bgr"``) while tifffile still supplies the tags.
     """
+    with _quiet_tifffile():
+        return _read_first_page(data, name)
+
+
+def _read_first_page(data: bytes, name: str) -> tuple[np.ndarray, object, int, str]:
     tf = _open_tiff(data, name)
     try:
         if not tf.pages:
