@@ -362,24 +362,25 @@ def _region_means(labels: np.ndarray, n: np.ndarray, count: int) -> np.ndarray:
 def _adjacent_pairs(labels: np.ndarray, *, return_counts: bool = False):
     """Unique pairs (a < b) of different non-zero labels touching in 4-connectivity
     (with the number of touching pixel pairs when `return_counts`)."""
-    pairs = []
+    lo_parts, hi_parts = [], []
     for a, b in ((labels[:, :-1], labels[:, 1:]), (labels[:-1, :], labels[1:, :])):
         sel = (a != b) & (a > 0) & (b > 0)
-        lo = np.minimum(a[sel], b[sel]).astype(np.int64)
-        hi = np.maximum(a[sel], b[sel]).astype(np.int64)
-        pairs.append(np.stack((lo, hi), axis=1))
-    p = np.concatenate(pairs, axis=0)
-    if len(p) == 0:
+        av, bv = a[sel], b[sel]
+        lo_parts.append(np.minimum(av, bv))
+        hi_parts.append(np.maximum(av, bv))
+    lo = np.concatenate(lo_parts)
+    hi = np.concatenate(hi_parts)
+    idx_t = np.int32 if labels.max(initial=0) < 2**31 - 1 else np.int64
+    if len(lo) == 0:
+        p = np.zeros((0, 2), dtype=idx_t)
         return (p, np.zeros(0, dtype=np.int64)) if return_counts else p
     m = int(labels.max()) + 1
-    # duplicates summed by the sparse matrix conversion (linear time, no sort of p)
-    g = sparse.coo_matrix((np.ones(len(p), dtype=np.int64), (p[:, 0], p[:, 1])), shape=(m, m))
-    g = g.tocsr()
+    # duplicates summed by the sparse matrix conversion (linear time, no sort)
+    g = sparse.csr_matrix((np.ones(len(lo), dtype=np.int32), (lo, hi)), shape=(m, m))
     g.sum_duplicates()
-    rows = np.repeat(np.arange(m, dtype=np.int64), np.diff(g.indptr))
-    out = np.stack((rows, g.indices.astype(np.int64)), axis=1)
-    counts = g.data
-    return (out, counts) if return_counts else out
+    rows = np.repeat(np.arange(m, dtype=idx_t), np.diff(g.indptr))
+    out = np.stack((rows, g.indices.astype(idx_t)), axis=1)
+    return (out, g.data.astype(np.int64)) if return_counts else out
 
 
 def segment_facets(
@@ -477,9 +478,10 @@ def segment_facets(
             axis=1,
         )
         with np.errstate(invalid="ignore", divide="ignore"):
-            means = sums / np.linalg.norm(sums, axis=1)[:, None]
+            means = sums / np.sqrt(np.einsum("ij,ij->i", sums, sums))[:, None]
         # only pairs next to a region that changed can have become mergeable
         cand = pairs[changed[pairs[:, 0]] | changed[pairs[:, 1]]]
+        cand = cand[cand[:, 0] != cand[:, 1]]  # pairs inside one merged region
         cosang = np.einsum("ij,ij->i", means[cand[:, 0]], means[cand[:, 1]])
         p = cand[cosang > cos_merge]
         if len(p) == 0 or len(p) < min_merge_fraction * count:
@@ -489,7 +491,7 @@ def segment_facets(
         )
         ncomp, comp = csgraph.connected_components(g, directed=False)
         # renumber so that the background (node 0, which has no edges) stays 0
-        comp = comp.astype(np.int64)
+        comp = comp.astype(pairs.dtype)
         bg = comp[0]
         comp = np.where(comp > bg, comp, comp + 1)
         comp[0] = 0
@@ -498,7 +500,6 @@ def segment_facets(
         changed = np.bincount(comp, weights=changed, minlength=ncomp) > 0
         mapping = comp[mapping]
         pairs = comp[pairs]
-        pairs = pairs[pairs[:, 0] != pairs[:, 1]]
         count = ncomp - 1
     labels = mapping[labels0].astype(np.int32)
     if count == 0:
@@ -522,13 +523,26 @@ def segment_facets(
     keep = (area >= min_area_px) & (rms <= tol) & (interior >= max(1, min_area_px // 4))
     if min_half_width_px > 1.0:
         # a facet must hold a disc of radius min_half_width_px: bands along ridges,
-        # where smoothed normals turn gradually from one face to the next, are thinner
-        edge = (inner == 0) & (labels > 0)
-        depth = ndimage.distance_transform_edt(~edge)
-        deep = np.bincount(
-            labels.ravel(), weights=(depth >= min_half_width_px).ravel(), minlength=count + 1
-        )
-        keep &= deep > 0
+        # where smoothed normals turn gradually from one face to the next, are thinner.
+        # Distance to the region's own border (the image edge is no border), computed
+        # on each candidate's bounding box only.
+        r = math.ceil(min_half_width_px) + 1
+        ny, nx = labels.shape
+        keep[0] = False
+        cand = np.nonzero(keep)[0]
+        cid = np.zeros(count + 1, dtype=np.int32)
+        cid[cand] = np.arange(1, len(cand) + 1)
+        clab = cid[labels]
+        for j, box in enumerate(ndimage.find_objects(clab)):
+            if box is None:
+                continue
+            sy, sx = box
+            y0, y1 = max(sy.start - r, 0), min(sy.stop + r, ny)
+            x0, x1 = max(sx.start - r, 0), min(sx.stop + r, nx)
+            m = clab[y0:y1, x0:x1] == j + 1
+            pad = ((int(y0 == 0), int(y1 == ny)), (int(x0 == 0), int(x1 == nx)))
+            m = np.pad(m, pad, mode="edge")
+            keep[cand[j]] = ndimage.distance_transform_edt(m).max() > min_half_width_px
     keep[0] = False
     new = np.zeros(count + 1, dtype=np.int64)
     new[keep] = np.arange(1, keep.sum() + 1)
