@@ -158,6 +158,24 @@ def test_banner_fonts_heights_polarities_sweep():
     assert hits == total
 
 
+def test_two_tone_banner_with_scale_bar():
+    # Black strip with a grey data box on the right, two text lines and a ticked scale bar.
+    base = texture(21, h=480, w=640, sigma=3, contrast=0.15, noise=0.02)
+    img = u8(base)
+    rows, w = 72, 640
+    strip = np.zeros((rows, w), np.uint8)
+    cv2.rectangle(strip, (w // 2, 4), (w - 5, rows - 5), 90, -1)
+    for k, text in enumerate(("HV 5.00 kV  WD 8.1 mm", "MAG 1500x  DET SE")):
+        cv2.putText(strip, text, (8, 26 + 28 * k), FONTS[0], 0.6, 255, 2, cv2.LINE_AA)
+    cv2.line(strip, (w // 2 + 20, 40), (w // 2 + 180, 40), 255, 3)
+    for x in (w // 2 + 20, w // 2 + 180):
+        cv2.line(strip, (x, 32), (x, 48), 255, 2)
+    img[-rows:] = strip
+    for im8 in (img, jpeg_round_trip(img, 80)):
+        info = detect_banner(im8 / 255.0)
+        assert info["detected"] and info["side"] == "bottom" and abs(info["rows"] - rows) <= 2
+
+
 def test_banner_manual_and_none(tmp_path):
     base = texture(9)
     img8 = u8(draw_banner(base, 30, "bottom", 0.0, 1.0, FONTS[0]))

@@ -27,8 +27,9 @@ Working inwards from an edge (bottom first, then top):
    first three rows > 40 % flat), and the boundary must be sharp (the mean of
    max(flat, near-bg) fractions drops by >= 0.4 across three rows each side);
 5. the band must be mostly background (mean of max(flat, near-bg) >= 0.5,
-   mean flat >= 0.2), background must cover >= 30 % of each of 8 column
-   segments (a strip across the whole width), and >= 0.2 % of its pixels must
+   mean flat >= 0.2), background (near ``bg``, or flat, as in a data box of
+   another grey) must cover >= 30 % of each of 8 column segments (a strip
+   across the whole width), and >= 0.2 % of its pixels must
    be marks (text, scale bar) differing from ``bg`` by more than 0.25.
 
 A frame with no accepted band is kept whole: shadowed or glaring edges lack
@@ -253,11 +254,11 @@ def _detect_side(g: np.ndarray, flat: np.ndarray, kmin: int, kmax: int) -> int:
     # A sharp boundary: banner-like inside, image-like outside, within three rows.
     if like[k - 3 : k].mean() - like[k : k + 3].mean() < 0.4:
         return 0
-    band_g, band_near = g[:k], near[:k]
+    band_g, band_bg = g[:k], near[:k] | flat[:k]  # background: near bg, or flat (boxes)
     if like[:k].mean() < 0.5 or rowf[:k].mean() < 0.2:
         return 0
     segs = np.array_split(np.arange(g.shape[1]), 8)
-    if min(float(band_near[:, sg].mean()) for sg in segs) < 0.3:
+    if min(float(band_bg[:, sg].mean()) for sg in segs) < 0.3:
         return 0
     marks = np.abs(band_g - bg) > MARK_CONTRAST
     if float(marks.mean()) < 0.002:
