@@ -124,12 +124,33 @@ def test_mean_lineal_intercept_px_on_a_known_map():
 
 def test_power_cell_owner_matches_brute_force():
     # Reference: the definition of the power cell, argmin_j |p - s_j|² - w_j, by brute force.
-    for gs in (GrainSize("lognormal", 4.0, 0.4), GrainSize("bimodal", 2.0, 0.0, 2.0, 6.0, 0.3)):
-        pc = make_polycrystal((30.0, 30.0), gs, seed=3)
-        rng = np.random.default_rng(0)
-        p = np.c_[rng.uniform(0, 30, (800, 2)), rng.uniform(-2, 2, 800)]
-        d2 = ((p[:, None, :] - pc.seeds_um[None, :, :]) ** 2).sum(-1) - pc.weights_um2[None, :]
-        np.testing.assert_array_equal(pc.owner(p), np.argmin(d2, axis=1))
+    pc = make_polycrystal((30.0, 30.0), GrainSize("lognormal", 4.0, 0.4), seed=3)
+    rng = np.random.default_rng(0)
+    p = np.c_[rng.uniform(0, 30, (800, 2)), rng.uniform(-2, 2, 800)]
+    d2 = ((p[:, None, :] - pc.seeds_um[None, :, :]) ** 2).sum(-1) - pc.weights_um2[None, :]
+    np.testing.assert_array_equal(pc.owner(p), np.argmin(d2, axis=1))
+
+
+def test_two_level_owner_matches_definition():
+    # Reference: the definition of the two-level tessellation, by brute force: the parent
+    # is the nearest parent seed; a kept parent cell is one grain, otherwise the grain is
+    # the nearest fine seed among those whose own nearest parent is the same.
+    pc = make_polycrystal((30.0, 30.0), GrainSize.parse("bimodal:2um,7um,0.4"), seed=5)
+    rng = np.random.default_rng(1)
+    p = np.c_[rng.uniform(0, 30, (600, 2)), rng.uniform(-3, 3, 600)]
+    par = np.argmin(((p[:, None] - pc.parent_seeds_um[None]) ** 2).sum(-1), axis=1)
+    seed_par = np.argmin(((pc.seeds_um[:, None] - pc.parent_seeds_um[None]) ** 2).sum(-1), axis=1)
+    expect = pc.parent_grain[par].copy()
+    for i in np.flatnonzero(expect < 0):
+        members = np.flatnonzero(seed_par == par[i])
+        d = ((pc.seeds_um[members] - p[i]) ** 2).sum(-1)
+        expect[i] = members[np.argmin(d)]
+    got = pc.owner(p)
+    np.testing.assert_array_equal(got, expect)
+    # and each point satisfies every bounding plane of its grain
+    for i in range(len(p)):
+        A, b, _ = pc.halfspace(got[i])
+        assert np.all(A @ p[i] <= b + 1e-9)
 
 
 def test_column_extent_are_cell_faces():

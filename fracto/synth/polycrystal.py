@@ -19,11 +19,12 @@ Grain sizes are given by :class:`GrainSize`:
   at density ``1 / E[π d³/6]`` and each gets weight ``(d_i / 2)²``: larger
   weights give larger cells, so the cell sizes spread further; the realised
   distribution is approximate and is measured and reported.
-* ``bimodal`` — coarse grains of diameter ``coarse_um`` placed by random
-  sequential addition at volume fraction ``coarse_volume_fraction`` with
-  weight ``(coarse_um/2)²``, in a matrix of fine Poisson–Voronoi grains of
-  diameter ``fine_um`` (fine seeds that fall inside a coarse sphere are
-  swallowed by it).
+* ``bimodal`` — a two-level tessellation: Poisson–Voronoi parent cells of
+  mean size ``coarse_um``; each stays one coarse grain with probability
+  ``coarse_volume_fraction`` (so that is the expected volume fraction), the
+  others are split into fine Poisson–Voronoi grains of size ``fine_um`` cut
+  by the parent cell. Coarse grains stay polyhedral (a weighted diagram with
+  a few heavy seeds among many light ones would round them into spheres).
 
 Grain size here is the equivalent-sphere diameter of the mean cell volume.
 For Poisson–Voronoi grains the mean lineal intercept is then
@@ -183,7 +184,18 @@ class Polycrystal:
     population : ndarray (n,) of uint8
         0 = fine / main population, 1 = coarse (bimodal).
     neighbours : list of ndarray
-        Indices of the grains sharing a face with each grain.
+        Indices of the grains sharing a face with each grain (power
+        tessellation; empty for a two-level tessellation).
+    slab_half_um : float
+        Heights beyond ±this are outside the seeded slab.
+    parent_seeds_um, parent_grain, grain_parent, parent_planes
+        Two-level tessellation (bimodal grains): Voronoi cells of the
+        ``parent_seeds_um`` are either one coarse grain (``parent_grain[c]`` ≥ 0)
+        or split into fine grains (Voronoi cells of the fine seeds inside,
+        cut by the parent cell; `neighbours` then lists the fine neighbours
+        within the same parent). ``parent_planes[c] = (A, b, across)`` are the
+        planes ``A p ≤ b`` of parent cell ``c`` and the grain across each (−1
+        when a search must find it).
     """
 
     seeds_um: np.ndarray
@@ -192,6 +204,55 @@ class Polycrystal:
     population: np.ndarray
     neighbours: tuple
     slab_half_um: float
+    parent_seeds_um: np.ndarray | None = None
+    parent_grain: np.ndarray | None = None
+    grain_parent: np.ndarray | None = None
+    parent_planes: tuple | None = None
+
+    def halfspace(self, grain: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Planes ``A p ≤ b`` bounding one grain, and the grain across each (−1 unknown)."""
+        _, A, b, across = self.planes(np.array([grain]))
+        return A, b, across
+
+    def planes(self, grains: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Bounding planes ``A p ≤ b`` of the given grains.
+
+        Returns
+        -------
+        row : ndarray (m,)
+            Position in `grains` the plane belongs to.
+        A : ndarray (m, 3), b : ndarray (m,)
+        across : ndarray (m,)
+            Grain on the other side of the plane (−1: not known without a search).
+        """
+        grains = np.asarray(grains, np.int64)
+        s = self.seeds_um
+        pw = np.sum(s**2, axis=1) - self.weights_um2
+        counts = np.array([len(self.neighbours[i]) for i in grains], np.int64)
+        row = np.repeat(np.arange(grains.size), counts)
+        nj = (
+            np.concatenate([self.neighbours[i] for i in grains])
+            if counts.sum()
+            else np.zeros(0, np.int64)
+        )
+        si = grains[row]
+        # |p - s_i|² - w_i <= |p - s_j|² - w_j  <=>  2 (s_j - s_i)·p <= pw_j - pw_i
+        A, b = 2.0 * (s[nj] - s[si]), pw[nj] - pw[si]
+        if self.parent_planes is None:
+            return row, A, b, nj
+        assert self.grain_parent is not None
+        parts = [self.parent_planes[c] for c in self.grain_parent[grains]]
+        pc = np.array([len(p[1]) for p in parts], np.int64)
+        prow = np.repeat(np.arange(grains.size), pc)
+        return (
+            np.concatenate([prow, row]),
+            np.concatenate([np.concatenate([p[0] for p in parts]), A]),
+            np.concatenate([np.concatenate([p[1] for p in parts]), b]),
+            np.concatenate([np.concatenate([p[2] for p in parts]), nj]),
+        )
+
+    def _owner_two_level(self, pts: np.ndarray) -> np.ndarray:
+        return _owner_two_level_impl(self, pts)
 
     def lifted(self) -> tuple[np.ndarray, float]:
         """Seeds lifted to 4-D so a Euclidean nearest-neighbour search finds power cells.
@@ -213,6 +274,8 @@ class Polycrystal:
         slower).
         """
         pts = np.asarray(points_um, np.float64)
+        if self.parent_seeds_um is not None:
+            return self._owner_two_level(pts)
         classes = np.unique(self.weights_um2)
         if len(classes) <= 3:
             best = np.full(len(pts), np.inf)
@@ -231,32 +294,33 @@ class Polycrystal:
         return idx.astype(np.int64)
 
 
-def _rsa_spheres(
-    rng: np.random.Generator,
-    n: int,
-    lo: np.ndarray,
-    hi: np.ndarray,
-    min_dist: float,
-    shift: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
-) -> np.ndarray:
-    """Random sequential addition of up to `n` points at mutual distance >= min_dist."""
-    pts: list[np.ndarray] = []
-    tries = 0
-    batch = 256
-    while len(pts) < n and tries < 60 * max(n, 1):
-        cand = rng.uniform(lo, hi, size=(batch, 3))
-        if shift is not None:
-            cand[:, 2] += shift(cand[:, 0], cand[:, 1])
-        tries += batch
-        for c in cand:
-            if pts:
-                arr = np.asarray(pts)
-                if np.min(np.sum((arr - c) ** 2, axis=1)) < min_dist**2:
-                    continue
-            pts.append(c)
-            if len(pts) >= n:
-                break
-    return np.asarray(pts).reshape(-1, 3)
+def _owner_two_level_impl(poly: Polycrystal, pts: np.ndarray) -> np.ndarray:
+    assert poly.parent_seeds_um is not None and poly.parent_grain is not None
+    assert poly.grain_parent is not None
+    _, c = cKDTree(poly.parent_seeds_um).query(pts, k=1, workers=2)
+    own = poly.parent_grain[c].astype(np.int64)
+    todo = np.flatnonzero(own < 0)
+    if todo.size:
+        fine = np.flatnonzero(
+            (poly.grain_parent >= 0) & (poly.parent_grain[poly.grain_parent] < 0)
+        )
+        tree = cKDTree(poly.seeds_um[fine])
+        k = min(8, fine.size)
+        _, idx = tree.query(pts[todo], k=k, workers=2)
+        idx = idx.reshape(todo.size, k)
+        cand = fine[idx]
+        same = poly.grain_parent[cand] == c[todo][:, None]
+        hit = same.any(axis=1)
+        first = np.argmax(same, axis=1)
+        own[todo[hit]] = cand[np.arange(todo.size), first][hit]
+        rest = todo[~hit]
+        if rest.size:  # far from the seeds of its parent: search that parent's seeds only
+            for cc in np.unique(c[rest]):
+                members = fine[poly.grain_parent[fine] == cc]
+                sel = rest[c[rest] == cc]
+                _, j = cKDTree(poly.seeds_um[members]).query(pts[sel], k=1)
+                own[sel] = members[j]
+    return own
 
 
 def _power_neighbours(seeds: np.ndarray, weights: np.ndarray) -> tuple:
@@ -343,33 +407,112 @@ def make_polycrystal(
             weights = np.zeros(n)
         population = np.zeros(n, np.uint8)
     else:
-        dc, df = float(grain_size.coarse_um), float(grain_size.fine_um)  # type: ignore[arg-type]
-        vc = math.pi / 6.0 * dc**3
-        n_c = round(float(grain_size.coarse_volume_fraction) * vol / vc)  # type: ignore[arg-type]
-        coarse = _rsa_spheres(rng, n_c, lo, hi, 0.95 * dc, crack_um)
-        n_f = rng.poisson(vol / (math.pi / 6.0 * df**3))
-        if n_f + len(coarse) > 400_000:
-            raise FractoInputError(
-                "The fine grains are too small for this field of view; use a larger fine "
-                "grain size or fewer pixels."
-            )
-        fine = rng.uniform(lo, hi, size=(n_f, 3))
-        if crack_um is not None:
-            fine[:, 2] += crack_um(fine[:, 0], fine[:, 1])
-        if len(coarse):
-            # fine seeds inside a coarse sphere would only leave slivers: drop them
-            dist, _ = cKDTree(coarse).query(fine, k=1)
-            fine = fine[dist > 0.5 * dc]
-        seeds = np.concatenate([coarse, fine])
-        weights = np.concatenate([np.full(len(coarse), (0.5 * dc) ** 2), np.zeros(len(fine))])
-        population = np.concatenate(
-            [np.ones(len(coarse), np.uint8), np.zeros(len(fine), np.uint8)]
-        )
+        return _two_level(rng, grain_size, lo, hi, vol, zh, crack_um)
     rot = Rotation.random(len(seeds), random_state=rng).as_matrix()
     neighbours = _power_neighbours(seeds, weights)
     if crack_um is not None and len(seeds):
         zh = float(np.max(np.abs(seeds[:, 2]))) + zh
     return Polycrystal(seeds, weights, rot, population, neighbours, zh)
+
+
+def _two_level(
+    rng: np.random.Generator,
+    grain_size: GrainSize,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    vol: float,
+    zh: float,
+    crack_um: Callable[[np.ndarray, np.ndarray], np.ndarray] | None,
+) -> Polycrystal:
+    """Bimodal polycrystal: coarse Voronoi cells, a share of them split into fine grains.
+
+    Parent seeds are uniform at density 1/v_c (v_c = π d_c³/6) and each parent
+    cell stays one coarse grain with probability equal to the coarse volume
+    fraction (cells are exchangeable, so the expected volume fraction is that
+    probability); the others are filled with fine Voronoi grains of seed
+    density 1/v_f, cut by the parent cell. Every grain is an intersection of
+    half-spaces, so faces stay planar and coarse grains polyhedral.
+    """
+    from scipy.spatial import Delaunay
+
+    dc, df = float(grain_size.coarse_um), float(grain_size.fine_um)  # type: ignore[arg-type]
+    f = float(grain_size.coarse_volume_fraction)  # type: ignore[arg-type]
+    n_p = max(2, int(rng.poisson(vol / (math.pi / 6.0 * dc**3))))
+    n_f = int(rng.poisson(vol / (math.pi / 6.0 * df**3)))
+    if n_f + n_p > 400_000:
+        raise FractoInputError(
+            "The fine grains are too small for this field of view; use a larger fine "
+            "grain size or fewer pixels."
+        )
+    parents = rng.uniform(lo, hi, size=(n_p, 3))
+    fine = rng.uniform(lo, hi, size=(n_f, 3))
+    if crack_um is not None:
+        parents[:, 2] += crack_um(parents[:, 0], parents[:, 1])
+        fine[:, 2] += crack_um(fine[:, 0], fine[:, 1])
+    kept = rng.uniform(size=n_p) < f
+    _, fparent = cKDTree(parents).query(fine, k=1)
+    fine, fparent = fine[~kept[fparent]], fparent[~kept[fparent]]
+    has_fine = np.bincount(fparent, minlength=n_p) > 0
+    whole = kept | ~has_fine  # parent cells that are one grain
+    parent_grain = np.full(n_p, -1, np.int64)
+    parent_grain[whole] = np.arange(int(whole.sum()))
+    n_whole = int(whole.sum())
+    order = np.argsort(fparent, kind="stable")
+    fine, fparent = fine[order], fparent[order]
+    seeds = np.concatenate([parents[whole], fine])
+    grain_parent = np.concatenate([np.flatnonzero(whole), fparent]).astype(np.int64)
+    population = np.concatenate([kept[whole].astype(np.uint8), np.zeros(len(fine), np.uint8)])
+    # parent-cell faces from the Delaunay triangulation of the parent seeds
+    tri = Delaunay(parents)
+    sim = tri.simplices
+    pairs = np.concatenate([sim[:, [a, b]] for a in range(4) for b in range(a + 1, 4)])
+    pairs = np.concatenate([pairs, pairs[:, ::-1]]).astype(np.int64)
+    code = np.unique(pairs[:, 0] * n_p + pairs[:, 1])
+    pa, pb = code // n_p, code % n_p
+    split = np.searchsorted(pa, np.arange(n_p + 1))
+    sq = np.sum(parents**2, axis=1)
+    parent_planes = []
+    for c in range(n_p):
+        nb = pb[split[c] : split[c + 1]]
+        A = 2.0 * (parents[nb] - parents[c])
+        b = sq[nb] - sq[c]
+        parent_planes.append((A, b, parent_grain[nb]))
+    neighbours: list = [np.zeros(0, np.int64)] * n_whole
+    starts = np.searchsorted(fparent, np.arange(n_p + 1))
+    for c in range(n_p):
+        lo_i, hi_i = starts[c], starts[c + 1]
+        m = hi_i - lo_i
+        if m == 0:
+            continue
+        if m <= 40:
+            full = np.arange(m)
+            nbs = [np.delete(full, i) for i in range(m)]
+        else:
+            t = Delaunay(fine[lo_i:hi_i])
+            pr = np.concatenate(
+                [t.simplices[:, [a, b]] for a in range(4) for b in range(a + 1, 4)]
+            )
+            pr = np.concatenate([pr, pr[:, ::-1]]).astype(np.int64)
+            cd = np.unique(pr[:, 0] * m + pr[:, 1])
+            qa, qb = cd // m, cd % m
+            sp = np.searchsorted(qa, np.arange(m + 1))
+            nbs = [qb[sp[i] : sp[i + 1]] for i in range(m)]
+        neighbours.extend(n_whole + lo_i + nb for nb in nbs)
+    rot = Rotation.random(len(seeds), random_state=rng).as_matrix()
+    if crack_um is not None and len(seeds):
+        zh = float(np.max(np.abs(seeds[:, 2]))) + zh
+    return Polycrystal(
+        seeds,
+        np.zeros(len(seeds)),
+        rot,
+        population,
+        tuple(neighbours),
+        zh,
+        parent_seeds_um=parents,
+        parent_grain=parent_grain,
+        grain_parent=grain_parent,
+        parent_planes=tuple(parent_planes),
+    )
 
 
 def mean_lineal_intercept_px(grain_ids: np.ndarray) -> float:
@@ -393,6 +536,7 @@ def column_extent(
     y_um: np.ndarray,
     *,
     chunk: int = 32768,
+    resolve: bool = True,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Top and bottom of each grain along vertical lines (exact planar faces).
 
@@ -416,7 +560,8 @@ def column_extent(
     z_top, z_bot : ndarray of float64
         Heights (µm) where the line leaves the grain, clipped to the slab.
     face_top, face_bot : ndarray of int64
-        Neighbour grain across the top and the bottom face (-1 at the slab).
+        Neighbour grain across the top and the bottom face (-1 at the slab,
+        and where a two-level tessellation does not store it unless `resolve`).
     """
     grain = np.asarray(grain, np.int64)
     x_um = np.asarray(x_um, np.float64)
@@ -429,25 +574,14 @@ def column_extent(
     f_bot = np.full(n, -1, np.int64)
     if n == 0:
         return z_top, z_bot, f_top, f_bot
-    s = poly.seeds_um
-    pw = np.sum(s**2, axis=1) - poly.weights_um2
     present, pix_row = np.unique(grain, return_inverse=True)
-    # every (grain, neighbour) pair of the grains present, as a plane z = α + β x + γ y
-    counts = np.array([len(poly.neighbours[i]) for i in present])
-    gi = np.repeat(np.arange(present.size), counts)
-    nj = (
-        np.concatenate([poly.neighbours[i] for i in present])
-        if counts.sum()
-        else np.zeros(0, np.int64)
-    )
-    si = present[gi]
-    a = s[nj] - s[si]
-    c = pw[nj] - pw[si]
-    az = a[:, 2]
+    # every bounding plane A·p <= b of the grains present, as z <=/>= α + β x + γ y
+    gi, Apl, bpl, nj = poly.planes(present)
+    az = Apl[:, 2]
     with np.errstate(divide="ignore", invalid="ignore"):
-        alpha = c / (2.0 * az)
-        beta = -a[:, 0] / az
-        gamma = -a[:, 1] / az
+        alpha = bpl / az
+        beta = -Apl[:, 0] / az
+        gamma = -Apl[:, 1] / az
     for up in (True, False):
         sel = az > 0 if up else az < 0
         g_s, j_s = gi[sel], nj[sel]
@@ -488,4 +622,11 @@ def column_extent(
                     ok = np.isfinite(val) & (val > -zh)
                     z_bot[p[ok]] = val[ok]
                     f_bot[p[ok]] = J[r, k][ok]
+    # faces whose far side is not stored (two-level tessellation): look it up
+    eps = 1e-6
+    for f, z, sign in ((f_top, z_top, 1.0), (f_bot, z_bot, -1.0)) if resolve else ():
+        unknown = np.flatnonzero((f < 0) & (np.abs(z) < zh))
+        if unknown.size:
+            q = np.c_[x_um[unknown], y_um[unknown], z[unknown] + sign * eps]
+            f[unknown] = poly.owner(q)
     return z_top, z_bot, f_top, f_bot

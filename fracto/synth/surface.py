@@ -352,7 +352,7 @@ def make_surface(
     gid = (compact + 1).reshape(ny, nx).astype(np.int32)
     n_g = len(present)
     lap("grain map")
-    z_top, z_bot, _f_top, _f_bot = column_extent(poly, owner, x, y)
+    z_top, z_bot, _f_top, _f_bot = column_extent(poly, owner, x, y, resolve=False)
     lap("grain faces")
 
     idx = np.arange(1, n_g + 1)
@@ -399,20 +399,29 @@ def make_surface(
         compact_of[present] = np.arange(n_g)
         pix = np.flatnonzero(sel)
         st = stays[g[pix]]
-        nb = np.where(st, _f_top[pix], _f_bot[pix])
+        sgn = np.where(st, 1.0, -1.0)
         zcur = h[pix]
+        nb_all = np.where(st, _f_top[pix], _f_bot[pix])
+        active = np.arange(pix.size)
         for _ in range(3):
+            nb = nb_all[active]
+            # faces whose far side is not stored (two-level tessellation): probe it
+            unknown = (nb < 0) & (np.abs(zcur[active]) < poly.slab_half_um)
+            if unknown.any():
+                au = active[unknown]
+                nb[unknown] = poly.owner(np.c_[x[pix[au]], y[pix[au]], zcur[au] + 1e-6 * sgn[au]])
             cn = np.where(nb >= 0, compact_of[np.maximum(nb, 0)], -1)
             ok = cn >= 0
-            ok[ok] &= (gmode[cn[ok]] == 0) & (stays[cn[ok]] == st[ok])
+            ok[ok] &= (gmode[cn[ok]] == 0) & (stays[cn[ok]] == st[active][ok])
             if not ok.any():
                 break
-            zt2, zb2, ft2, fb2 = column_extent(poly, nb[ok], x[pix[ok]], y[pix[ok]])
-            new_z = np.where(st[ok], zt2, zb2)
-            zcur[ok] = new_z
-            nb_new = np.full(pix.size, -1, np.int64)
-            nb_new[ok] = np.where(st[ok], ft2, fb2)
-            nb = nb_new
+            act = active[ok]
+            zt2, zb2, ft2, fb2 = column_extent(
+                poly, nb[ok], x[pix[act]], y[pix[act]], resolve=False
+            )
+            zcur[act] = np.where(st[act], zt2, zb2)
+            nb_all[act] = np.where(st[act], ft2, fb2)
+            active = act
         h[pix] = zcur
 
     # transgranular cleavage
@@ -449,9 +458,11 @@ def make_surface(
         zc = zc + 0.04 * size_um * rng.standard_normal(n_g)
         plane = zc[gs_] - (nn[:, 0] * du + nn[:, 1] * dv) / nn[:, 2]
         wob = _smooth_noise((ny, nx), px, 1.2 * d_nom, streams[6]).ravel()[sel]
-        spacing = np.maximum(fs.river_spacing * size_um[gs_], 3.0 * px)
+        # river lines: spacing grows as the square root of the grain size (coarse
+        # facets carry many more lines than fine ones); step height 15 % of it
+        spacing = np.maximum(fs.river_spacing * np.sqrt(size_um[gs_] * 1.0), 3.0 * px)
         steps = river_steps(un, v, 0.3 * wob, spacing, fs.river_merge)
-        step_h = fs.river_step_um if fs.river_step_um is not None else 0.02 * d_nom
+        step_h = fs.river_step_um if fs.river_step_um is not None else 0.15 * spacing
         sign = np.where(rng.uniform(size=n_g) < 0.5, -1.0, 1.0)[gs_]
         relief = sign * step_h * (steps - steps.mean())
         # occasional larger cleavage steps along the travel direction
