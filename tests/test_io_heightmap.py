@@ -429,3 +429,16 @@ def test_property_garbage_only_input_errors(tmp_path, blob, ext, prefix):
     except FractoInputError:
         return
     assert hm.z_um.ndim == 2  # garbage that happens to parse must still be a valid map
+
+
+def test_imagej_tiff_unit(tmp_path):
+    # ImageJ keeps ResolutionUnit = none and writes "unit=micron" in its description; the
+    # resolution is pixels per micron (tifffile writes the ImageJ form, a reference library).
+    z = np.random.default_rng(0).random((8, 9)).astype(np.float32)
+    p = tmp_path / "ij.tif"
+    tifffile.imwrite(p, z, imagej=True, resolution=(4.0, 4.0), metadata={"unit": "micron"})
+    hm = read_height_map(p)
+    assert hm.pixel_size.x_um == pytest.approx(0.25)
+    assert hm.pixel_size.source == "TIFF tags (ImageJ unit)"
+    tifffile.imwrite(p, z, imagej=True, resolution=(4.0, 4.0), metadata={"unit": "nm"})
+    assert read_height_map(p).pixel_size.x_um == pytest.approx(0.25e-3)

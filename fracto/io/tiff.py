@@ -11,7 +11,9 @@ Calibration, in order: a JSON ImageDescription written by fracto
 ``"pixel_size_um"`` is read as well), then the XResolution/YResolution tags
 when ResolutionUnit is centimetre, or inch with a value that is not a common
 screen/print density (an integer number of dots per inch up to 1200, such as
-72, 96 or 300, is taken as display metadata and ignored), then a sidecar JSON.
+72, 96 or 300, is taken as display metadata and ignored), or when
+ResolutionUnit is none and an ImageJ description names the unit
+(``unit=micron``), then a sidecar JSON.
 
 Writing: float32 heights in µm, resolution tags in pixels per centimetre and
 the exact pixel size in the JSON ImageDescription.
@@ -24,12 +26,14 @@ import io
 import json
 import logging
 import os
+import re
 
 import numpy as np
 
 from fracto.errors import FractoInputError
 from fracto.io.calibration import PixelSize
 from fracto.io.heightmap import HeightMap, coerce_pixel_size, finish, read_file_bytes
+from fracto.units import length_unit_factor
 
 _RES_UNIT_UM = {2: 25400.0, 3: 10000.0}  # micrometres per inch, per centimetre
 
@@ -87,7 +91,21 @@ def tiff_calibration(page: object) -> tuple[PixelSize | None, dict]:
         yres = _rational(yr.value) if yr is not None else None
     except (TypeError, ValueError, AttributeError):
         return None, facts
-    if xres is None or yres is None or xres <= 0 or yres <= 0 or unit not in _RES_UNIT_UM:
+    if xres is None or yres is None or xres <= 0 or yres <= 0:
+        return None, facts
+    if unit == 1 and desc.startswith("ImageJ="):
+        # ImageJ files keep ResolutionUnit = none and name the unit in the description
+        # ("unit=micron"); the resolution is then pixels per that unit.
+        m = re.search(r"^unit=(.+)$", desc, flags=re.MULTILINE)
+        if m:
+            label = m.group(1).strip().replace("\\u00B5", "µ")
+            try:
+                per = length_unit_factor(label)
+                return PixelSize(per / xres, per / yres, "TIFF tags (ImageJ unit)"), facts
+            except FractoInputError:
+                facts["imagej_unit_unknown"] = label
+        return None, facts
+    if unit not in _RES_UNIT_UM:
         return None, facts
     if unit == 2 and all(float(r).is_integer() and r <= 1200 for r in (xres, yres)):
         facts["resolution_ignored"] = f"{xres:g} x {yres:g} dpi (display density)"
