@@ -385,3 +385,19 @@ def test_nan_right_half_equals_left_part_for_gradients():
     assert gradient_parameters(holed, 0.5, 0.5) == pytest.approx(
         gradient_parameters(z[:, :70], 0.5, 0.5), rel=1e-12
     )
+
+
+def test_degenerate_maps_give_nan_not_warnings():
+    # Definitions: a flat map has Sq = 0, so Ssk, Sku (divided by Sq³, Sq⁴) and the
+    # normalised ACF (divided by its value at lag 0) are undefined → NaN, with no warning.
+    import warnings
+
+    from fracto.surface.areal import areal_parameters
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        flat = areal_parameters(np.full((6, 7), 2.5), 1.0, 1.0, features=False)
+        tiny = areal_parameters(np.arange(6.0).reshape(2, 3), 1.0, 1.0, features=False)
+    assert flat["Sq"] == 0.0 and flat["Sv"] == 0.0
+    assert np.isnan(flat["Ssk"]) and np.isnan(flat["Sku"]) and np.isnan(flat["Sal"])
+    assert np.isnan(tiny["Sal"]) and np.isnan(tiny["Str"])

@@ -170,7 +170,7 @@ def height_parameters(z: np.ndarray) -> dict[str, float]:
         sku = (s4 / n) / sq**4
     else:
         ssk = sku = math.nan
-    sp, sv = zmax, -zmin
+    sp, sv = zmax + 0.0, 0.0 - zmin  # + 0.0: no negative zero
     return {
         "Sa": s1 / n,
         "Sq": sq,
@@ -430,14 +430,14 @@ def spatial_parameters(
             return np.where(pairs > 0.5, c / np.maximum(pairs, 1.0), np.nan)
 
     c0 = float(acf_at(np.array([0]), np.array([0]))[0])
-    if not (c0 > 0):
+    if not (c0 > 0) or min(lx, ly) < 2:  # flat map, or too few lags in some direction
         return {"Sal": math.nan, "Str": math.nan, "Std": std_deg}
 
     theta = np.arange(n_directions) * (math.pi / n_directions)
     ct, st = np.cos(theta), np.sin(theta)
     dr = 0.5 * min(dx, dy)
     # end of each ray: the lag box |tx| <= lx-1, |ty| <= ly-1 (physical units)
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):
         rx = np.where(np.abs(ct) > 1e-12, (lx - 1) * dx / np.abs(ct), np.inf)
         ry = np.where(np.abs(st) > 1e-12, (ly - 1) * dy / np.abs(st), np.inf)
     rend = np.minimum(rx, ry)
@@ -704,7 +704,7 @@ def material_ratio_parameters(
         "Vmp": vm_p,
         "Vmc": vm_q - vm_p,
         "Vvc": vv_p - vv_q,
-        "Vvv": vv_q,
+        "Vvv": vv_q + 0.0,
     }
 
 
