@@ -442,3 +442,17 @@ def test_imagej_tiff_unit(tmp_path):
     assert hm.pixel_size.source == "TIFF tags (ImageJ unit)"
     tifffile.imwrite(p, z, imagej=True, resolution=(4.0, 4.0), metadata={"unit": "nm"})
     assert read_height_map(p).pixel_size.x_um == pytest.approx(0.25e-3)
+
+
+def test_three_column_integer_grid_with_header(tmp_path):
+    # Integer heights in three columns repeat values, so without a header they look like
+    # x,y,z; a header that does not name x, y, z says they are a grid.
+    z = np.random.default_rng(2).integers(0, 3, size=(12, 3)).astype(float)
+    z[0] = [0, 1, 2]
+    body = "\n".join(",".join(str(int(v)) for v in r) for r in z.tolist())
+    p = tmp_path / "g.csv"
+    p.write_text("a,b,c\n" + body)
+    np.testing.assert_array_equal(read_height_map(p).z_um, z)
+    p.write_text(body)
+    with pytest.raises(FractoInputError):  # duplicates as x,y,z: refused with advice
+        read_height_map(p)

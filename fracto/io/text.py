@@ -14,12 +14,14 @@ Layout rules (fracto's own; common practice for instrument exports)
 * Not measured: an empty field, ``nan``, ``na``, ``n/a``, ``null``, ``none``,
   ``***``, ``bad`` and ``inf`` (case-insensitive), and the ESRI nodata value.
 * Grid: row ``i`` of the file is row ``i`` of the map (rows run along y).
-* x,y,z is chosen when there are exactly three columns and at least 9 rows and
-  either the header names x and y, or the x and y columns take repeated values
+* x,y,z is chosen when there are exactly three columns and either the header
+  names x, y and z, or there is no header, at least 9 rows, and the x and y
+  columns take repeated values
   (each has at most half as many distinct values as there are rows), or the x or
   y column is sorted. The points must then lie on a regular, axis-aligned
   lattice: every coordinate within 1e-6 of the spacing (plus half a unit of the
-  last printed decimal) of ``origin + k * spacing``, and no point twice;
+  last printed decimal) of ``origin + k * spacing``, at least half of the
+  lattice columns and rows holding a point, and no point twice;
   lattice nodes without a point are NaN. Map row ``i`` holds
   ``y = y_min + i * dy`` and column ``j`` holds ``x = x_min + j * dx``. The pixel
   size is the lattice spacing in the lateral unit (the z unit unless the header
@@ -218,7 +220,10 @@ def _xyz_to_grid(cols: np.ndarray, tok_cols: list, name: str) -> tuple:
         )
     flat = iy * nx + ix
     if flat.size and np.bincount(flat, minlength=1).max() > 1:
-        raise FractoInputError(f"'{name}' lists the same x,y point more than once.")
+        raise FractoInputError(
+            f"'{name}' lists the same x,y point more than once (if it is a three-column grid "
+            "of heights, give it a header line that does not name x, y and z)."
+        )
     grid = np.full(ny * nx, np.nan)
     grid[flat] = z
     return grid.reshape(ny, nx), dx, dy, x0, y0
@@ -319,7 +324,7 @@ def parse_text(text: str, name: str) -> dict:
     if ncol == 3 and not esri:
         if hdr is not None:
             is_xyz = True
-        elif nrow >= 9:
+        elif header is None and nrow >= 9:  # a header not naming x, y, z means a grid
             c0, c1 = values[:, 0], values[:, 1]
             fin = np.isfinite(c0).all() and np.isfinite(c1).all()
             if fin:
