@@ -243,3 +243,19 @@ def test_sem_shaded_surface_pair(surf):
     left, right = render(z, albedo, PS, -4.0), render(z, albedo, PS, 4.0)
     res = stereo_height(left, right, tilt_difference_deg=8.0, pixel_size_um=PS)
     assert rms_error_over_sq(res.height_um, z) <= 0.05
+
+
+def test_flip_parallax_one_at_zero(surf):
+    # derived: views at 0 and -dtheta give p = x (cos dtheta - 1) - z sin dtheta, so
+    # z = -(p + x (1 - cos dtheta)) / sin dtheta: the flip negates the whole relation
+    z, tex = surf
+    left, right = render(z, tex, PS, 0.0), render(z, tex, PS, -8.0)
+    res = stereo_height(
+        left,
+        right,
+        tilt_difference_deg=8.0,
+        pixel_size_um=PS,
+        mode="one-at-zero",
+        flip_parallax=True,
+    )
+    assert rms_error_over_sq(res.height_um, z) <= 0.05
