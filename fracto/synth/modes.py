@@ -75,6 +75,8 @@ class FractureSettings:
         Height of one river step (default 0.15 × the local line spacing).
     river_merge : int
         Fine river lines that merge into one downstream.
+    river_fraction : float
+        Share of cleavage facets that show river lines (the others are smooth).
     cleavage_step_um : float or None
         Height of the occasional larger cleavage steps (default 0.06 × grain size).
     cleavage_curvature : float
@@ -116,6 +118,7 @@ class FractureSettings:
     river_spacing: float = 0.2
     river_step_um: float | None = None
     river_merge: int = 3
+    river_fraction: float = 0.7
     cleavage_step_um: float | None = None
     secondary_crack_probability: float = 0.05
     cleavage_curvature: float = 0.06

@@ -56,10 +56,10 @@ class RenderSettings:
 
     yield_base: float = 0.30
     secant_cap: float = 3.5
-    edge_gain: float = 0.4
+    edge_gain: float = 0.7
     edge_sigma_um: float = 0.06
-    edge_glow_gain: float = 1.6
-    edge_glow_um: float = 0.6
+    edge_glow_gain: float = 1.0
+    edge_glow_um: float = 0.3
     detector_strength: float = 0.9
     detector_azimuth_deg: float = 120.0
     detector_elevation_deg: float = 30.0
@@ -72,7 +72,7 @@ class RenderSettings:
     dose: float | None = 300.0
     line_jitter: float = 0.01
     auto_level: bool = True
-    median_level: float = 0.35
+    median_level: float = 0.32
     brightness: float = 0.0
     contrast: float = 1.15
     gamma: float = 1.0

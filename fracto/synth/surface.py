@@ -312,7 +312,7 @@ def make_surface(
     if not (0.25 * px <= gs.mean_um or gs.kind == "bimodal"):
         raise FractoInputError("The grains are smaller than the pixels; use a larger grain size.")
 
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(12)]
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(14)]
     d_nom = gs.nominal_um
     extent = (ny * px, nx * px)
 
@@ -461,10 +461,24 @@ def make_surface(
         # river lines: spacing grows as the square root of the grain size (coarse
         # facets carry many more lines than fine ones); step height 15 % of it
         spacing = np.maximum(fs.river_spacing * np.sqrt(size_um[gs_] * 1.0), 3.0 * px)
-        steps = river_steps(un, v, 0.3 * wob, spacing, fs.river_merge)
+        # irregular line spacing: a field stretched along the mean travel direction
+        streak = gaussian_correlated_field(
+            (ny, nx),
+            max(2.0 * d_nom, 4 * px),
+            px,
+            px,
+            rms_um=1.0,
+            seed=int(streams[11].integers(2**31)),
+            anisotropy=0.08,
+            angle_deg=math.degrees(travel),
+        ).ravel()[sel]
+        steps = river_steps(un, v, 0.3 * wob + 0.8 * streak, spacing, fs.river_merge)
         step_h = fs.river_step_um if fs.river_step_um is not None else 0.15 * spacing
-        sign = np.where(rng.uniform(size=n_g) < 0.5, -1.0, 1.0)[gs_]
-        relief = sign * step_h * (steps - steps.mean())
+        sign = np.where(rng.uniform(size=n_g) < 0.5, -1.0, 1.0)
+        # not every facet shows rivers, and their strength varies from grain to grain
+        shows = rng.uniform(size=n_g) < fs.river_fraction
+        amp = (sign * shows * rng.uniform(0.5, 1.5, size=n_g))[gs_]
+        relief = amp * step_h * (steps - steps.mean())
         # occasional larger cleavage steps along the travel direction
         big_h = fs.cleavage_step_um if fs.cleavage_step_um is not None else 0.06 * d_nom
         has_big = (rng.uniform(size=n_g) < 0.5)[gs_]
