@@ -196,7 +196,7 @@ def sniff_format(data: bytes, path: str | os.PathLike) -> str:
     if head[:4] == b"PK\x03\x04":
         return "npz"
     first = head.lstrip()[:8].lower()
-    if first.startswith((b"abcr", b"bbcr")) or first.startswith((b"asdf", b"bsdf")):
+    if first.startswith((b"abcr", b"bbcr")):
         return "sdf"
     ext = Path(path).suffix.lower()
     if ext == ".npy":
