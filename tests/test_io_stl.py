@@ -170,3 +170,14 @@ def test_property_garbage_only_input_errors(tmp_path, blob, prefix):
         read_height_map(p, stl_pixel_size_um=0.5)
     except FractoInputError:
         pass
+
+
+def test_fast_ascii_parser_matches_numpy_stl(tmp_path):
+    from fracto.io.stl import _ascii_vectors
+
+    rng = np.random.default_rng(7)
+    tris = rng.normal(size=(50, 3, 3))
+    p = _save(tmp_path / "r.stl", tris, binary=False)
+    ours = _ascii_vectors(p.read_bytes())
+    ref = mesh.Mesh.from_file(str(p), mode=Mode.ASCII).vectors  # numpy-stl's own parser
+    np.testing.assert_array_equal(ours, ref.astype(np.float64))

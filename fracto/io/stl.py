@@ -33,8 +33,32 @@ MAX_PIXELS = 64_000_000
 CHUNK_PAIRS = 2_000_000
 
 
+def _ascii_vectors(data: bytes) -> np.ndarray | None:
+    """Fast reader for ASCII STL: the three numbers after each ``vertex`` keyword.
+
+    Returns None when `data` does not look like a complete ASCII STL, so that
+    numpy-stl gets the file instead.
+    """
+    head = data[:1024].lstrip()
+    if not head[:5].lower() == b"solid" or b"facet" not in data[:4096]:
+        return None
+    tokens = np.array(data.split())
+    at = np.nonzero((tokens == b"vertex") | (tokens == b"VERTEX"))[0]
+    if at.size == 0 or at.size % 3 or at[-1] + 3 >= tokens.size:
+        return None
+    try:
+        xyz = tokens[at[:, None] + np.arange(1, 4)].astype(np.float64)
+    except ValueError:
+        return None
+    return xyz.reshape(-1, 3, 3)
+
+
 def _load_mesh_vectors(data: bytes, name: str) -> np.ndarray:
     from stl import Mode, mesh
+
+    fast = _ascii_vectors(data)
+    if fast is not None:
+        return fast
 
     last: Exception | None = None
     for mode in (Mode.AUTOMATIC, Mode.BINARY):
