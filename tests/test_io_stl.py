@@ -180,4 +180,6 @@ def test_fast_ascii_parser_matches_numpy_stl(tmp_path):
     p = _save(tmp_path / "r.stl", tris, binary=False)
     ours = _ascii_vectors(p.read_bytes())
     ref = mesh.Mesh.from_file(str(p), mode=Mode.ASCII).vectors  # numpy-stl's own parser
-    np.testing.assert_array_equal(ours, ref.astype(np.float64))
+    # numpy-stl holds float32; ours keeps the printed decimals in float64.
+    np.testing.assert_array_equal(ours.astype(np.float32), ref)
+    np.testing.assert_allclose(ours, ref, rtol=1e-6)
