@@ -390,9 +390,17 @@ def read_sdf(
             raise FractoInputError(
                 f"'{name}' holds {len(tokens)} values where its header declares {count}."
             )
-        clean = ["nan" if t.lower() in _MISSING_TOKENS else t for t in tokens]
+        ftype = np.float32 if code == 3 else np.float64
+        try:  # fast path: NumPy reads numbers, NaN and inf itself
+            z = np.array(tokens, dtype=ftype).reshape(ny, nx)
+        except ValueError:
+            z = None
+        clean = tokens
+        if z is None:
+            clean = ["nan" if t.lower() in _MISSING_TOKENS else t for t in tokens]
         try:
-            z = np.array(clean, dtype=np.float32 if code == 3 else np.float64).reshape(ny, nx)
+            if z is None:
+                z = np.array(clean, dtype=ftype).reshape(ny, nx)
         except ValueError as exc:
             bad = next((t for t in clean if not _is_number(t)), "?")
             raise FractoInputError(
