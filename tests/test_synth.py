@@ -73,6 +73,23 @@ def test_requested_fractions_met_on_1024_and_labels_equal_truth(tmp_path):
         assert abs(truth["fractions"][name] - target[name]) <= 0.05
 
 
+def test_requested_fractions_met_lognormal_1024():
+    # Second case of the ±0.05 bar: spread grain sizes (power-weighted cells), two modes.
+    target = {"intergranular": 0.7, "transgranular": 0.3}
+    surf = make_surface(
+        size=1024,
+        modes=target,
+        grain_size=GrainSize.parse("lognormal:2um,0.3"),
+        seed=9,
+        render=RenderSettings.secant_only(),
+    )
+    lab = surf.labels
+    for name in MODES:
+        frac = float(np.mean(lab == CLASSES.index(name)))
+        assert frac == surf.truth["fractions"][name]
+        assert abs(frac - target.get(name, 0.0)) <= 0.05
+
+
 def test_height_tif_carries_pixel_size(tmp_path):
     from fracto.io import read_height_map
 

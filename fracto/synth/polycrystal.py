@@ -267,11 +267,15 @@ class Polycrystal:
     def owner(self, points_um: np.ndarray) -> np.ndarray:
         """Index of the grain containing each 3-D point (power-cell owner).
 
-        With up to three distinct weights (Voronoi, bimodal), within one
-        weight class the power-nearest seed is the Euclidean nearest: one 3-D
-        k-d tree query per class, then the least power distance ``d² − w``
-        over the classes. Otherwise the lifted 4-D search of `lifted` (exact,
-        slower).
+        With up to three distinct weights, within one weight class the
+        power-nearest seed is the Euclidean nearest: one 3-D k-d tree query
+        per class, then the least power distance ``d² − w`` over the classes.
+        With more weights: start at the Euclidean-nearest seed with a
+        non-empty cell and walk to the face neighbour of least power distance
+        until none is better. The power distance ``pw_j − 2 s_j·p`` is linear
+        in the lifted seeds ``(s_j, pw_j)`` and the lower convex hull of those
+        is a convex piecewise-linear graph, so a vertex that beats all its
+        edge neighbours is the global minimum (exact).
         """
         pts = np.asarray(points_um, np.float64)
         if self.parent_seeds_um is not None:
@@ -288,10 +292,57 @@ class Polycrystal:
                 best[better] = power[better]
                 owner[better] = members[k[better]]
             return owner
-        # many weights: exact search among seeds lifted to 4-D (see `lifted`)
-        lifted, _ = self.lifted()
-        _, idx = cKDTree(lifted).query(np.c_[pts, np.zeros(len(pts))], k=1, workers=2)
-        return idx.astype(np.int64)
+        return _owner_by_walk(self, pts)
+
+
+def _owner_by_walk(poly: Polycrystal, pts: np.ndarray) -> np.ndarray:
+    s = poly.seeds_um
+    pw = np.sum(s**2, axis=1) - poly.weights_um2
+    deg = np.array([len(nb) for nb in poly.neighbours], np.int64)
+    visible = np.flatnonzero(deg > 0)
+    if visible.size == 0:
+        return np.zeros(len(pts), np.int64)
+    _, k = cKDTree(s[visible]).query(pts, k=1, workers=2)
+    owner = visible[k].astype(np.int64)
+    # neighbour tables in buckets of similar degree (self first, then neighbours)
+    limits = (16, 24, 32, 48, 64, 128, 256, 1 << 30)
+    bucket = np.searchsorted(np.array(limits), deg)
+    tables = {}
+    for b_i in range(len(limits)):
+        members = np.flatnonzero(bucket == b_i)
+        if members.size == 0:
+            continue
+        width = int(deg[members].max()) + 1
+        tab = np.repeat(members[:, None], width, axis=1)  # pad with self (never better)
+        for r, i in enumerate(members):
+            tab[r, 1 : 1 + deg[i]] = poly.neighbours[i]
+        row = np.full(len(s), -1, np.int64)
+        row[members] = np.arange(members.size)
+        tables[b_i] = (tab, row)
+    active = np.arange(len(pts))
+    for _ in range(500):
+        if active.size == 0:
+            break
+        moved = np.zeros(active.size, bool)
+        ab = bucket[owner[active]]
+        for b_i, (tab, row) in tables.items():
+            idx = np.flatnonzero(ab == b_i)
+            step = max(1, 2_000_000 // tab.shape[1])
+            for st in range(0, idx.size, step):
+                sub = idx[st : st + step]
+                a = active[sub]
+                cand = tab[row[owner[a]]]
+                p = pts[a]
+                val = pw[cand] - 2.0 * (
+                    s[cand, 0] * p[:, 0:1] + s[cand, 1] * p[:, 1:2] + s[cand, 2] * p[:, 2:3]
+                )
+                j = np.argmin(val, axis=1)
+                new = cand[np.arange(a.size), j]
+                mv = new != owner[a]
+                owner[a] = new
+                moved[sub] = mv
+        active = active[moved]
+    return owner
 
 
 def _owner_two_level_impl(poly: Polycrystal, pts: np.ndarray) -> np.ndarray:
