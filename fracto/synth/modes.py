@@ -72,7 +72,7 @@ class FractureSettings:
         sqrt(grain size × 1 µm) (µm): 0.2 gives 0.45 µm on 5 µm grains and
         0.75 µm on 14 µm grains.
     river_step_um : float or None
-        Height of one river step (default 0.15 × the local line spacing).
+        Height of one river step (default 0.1 × the local line spacing).
     river_merge : int
         Fine river lines that merge into one downstream.
     river_fraction : float

@@ -16,7 +16,8 @@ The signal at each pixel is built from the local surface geometry:
    recaptured: factor ``1 - valley_strength · (1 - exp(-o / valley_depth_um))``
    with ``o`` = morphological closing of the height (radius
    ``valley_radius_um``) minus the height, an ambient-occlusion-like depth;
-5. beam **blur** (Gaussian, σ = ``blur_um``), **shot noise** (Poisson counts at
+5. a slow **shading** gain across the field (``shading_variation``), beam
+   **blur** (Gaussian, σ = ``blur_um``), **shot noise** (Poisson counts at
    ``dose`` electrons per pixel for signal 1), scan-line jitter, then the
    amplifier: optional automatic levels, ``contrast``, ``brightness``,
    ``gamma``; quantisation to 8 or 16 bits, an optional JPEG round trip and an
@@ -68,6 +69,7 @@ class RenderSettings:
     valley_strength: float = 0.4
     valley_radius_um: float = 1.2
     valley_depth_um: float = 0.25
+    shading_variation: float = 0.08
     blur_um: float = 0.05
     dose: float | None = 300.0
     line_jitter: float = 0.01
@@ -107,6 +109,7 @@ class RenderSettings:
             detector_strength=0.0,
             detector_shadow=0.0,
             valley_strength=0.0,
+            shading_variation=0.0,
             blur_um=0.0,
             dose=None,
             line_jitter=0.0,
@@ -137,6 +140,7 @@ class RenderSettings:
             valley_strength=float(rng.uniform(0.2, 0.8)),
             valley_radius_um=float(rng.uniform(0.3, 1.2)),
             valley_depth_um=float(rng.uniform(0.1, 0.5)),
+            shading_variation=float(rng.uniform(0.0, 0.2)),
             blur_um=float(rng.uniform(0.0, 0.1)),
             dose=float(rng.uniform(10.0, 200.0)) if rng.uniform() < 0.9 else None,
             line_jitter=float(rng.uniform(0.0, 0.03)),
@@ -327,6 +331,14 @@ def render_sem(
     if s.valley_strength > 0:
         occ = _valley_depth(h, s.valley_radius_um / px)
         signal *= 1.0 - s.valley_strength * (1.0 - np.exp(-occ / s.valley_depth_um))
+
+    if s.shading_variation > 0:
+        # slow variation of collection efficiency across the field (detector geometry,
+        # slight charging): a smooth multiplicative gain, 4 x 4 random nodes
+        # interpolated bicubically over the image
+        nodes = 1.0 + s.shading_variation * rng.standard_normal((4, 4)).astype(np.float32)
+        gain = cv2.resize(nodes, (h.shape[1], h.shape[0]), interpolation=cv2.INTER_CUBIC)
+        signal *= np.maximum(gain, 0.2)
 
     if s.blur_um > 0:
         signal = ndimage.gaussian_filter(signal, s.blur_um / px)

@@ -459,7 +459,7 @@ def make_surface(
         plane = zc[gs_] - (nn[:, 0] * du + nn[:, 1] * dv) / nn[:, 2]
         wob = _smooth_noise((ny, nx), px, 1.2 * d_nom, streams[6]).ravel()[sel]
         # river lines: spacing grows as the square root of the grain size (coarse
-        # facets carry many more lines than fine ones); step height 15 % of it
+        # facets carry many more lines than fine ones); step height 10 % of it
         spacing = np.maximum(fs.river_spacing * np.sqrt(size_um[gs_] * 1.0), 3.0 * px)
         # irregular line spacing: a field stretched along the mean travel direction
         streak = gaussian_correlated_field(
@@ -473,7 +473,7 @@ def make_surface(
             angle_deg=math.degrees(travel),
         ).ravel()[sel]
         steps = river_steps(un, v, 0.3 * wob + 0.8 * streak, spacing, fs.river_merge)
-        step_h = fs.river_step_um if fs.river_step_um is not None else 0.15 * spacing
+        step_h = fs.river_step_um if fs.river_step_um is not None else 0.1 * spacing
         sign = np.where(rng.uniform(size=n_g) < 0.5, -1.0, 1.0)
         # not every facet shows rivers, and their strength varies from grain to grain
         shows = rng.uniform(size=n_g) < fs.river_fraction
