@@ -375,7 +375,12 @@ def spatial_parameters(
     0° = the +x axis (along a row, increasing column index), increasing towards
     +y (increasing row index) — on an image drawn with row 0 at the top that is
     clockwise. A surface with grooves running along x has Std = 0°, along y 90°.
-    Std is meaningless for an isotropic surface (Str near 1).
+    Std is meaningless for an isotropic surface (Str near 1). Note: ISO 25178-2
+    words Std as the angle of the maximum of the angular power spectrum; read
+    literally that is the direction across the lay, 90° from what we report —
+    we give the lay direction, as the parameter's name (texture direction)
+    intends (from memory; check against the text before comparing numbers).
+    Maps with fewer than 4 points along x or y give Sal = Str = NaN.
 
     Parameters
     ----------
@@ -402,6 +407,9 @@ def spatial_parameters(
     z = _check_map(z)
     dx, dy = _check_spacing(dx, dy)
     s = float(s)
+    n_directions = int(n_directions)
+    if n_directions < 4:
+        raise FractoInputError("Give at least 4 ray directions for Sal and Str.")
     if not (0.0 < s < 1.0):
         raise FractoInputError(
             f"The autocorrelation threshold s must lie between 0 and 1, not {s}."
