@@ -134,6 +134,14 @@ def _negatives():
             ("bright_middle", seed, np.clip(base + 0.45 * ((y > 0.45) & (y < 0.6)), 0, 1)),
             ("low_contrast", seed, 0.5 + 0.2 * (base - base.mean())),
         ]
+    # A black box over part of the lower edge (not a full-width strip), on a saturating
+    # high-contrast texture and on a smooth low-contrast one.
+    for seed, (contrast, noise, sigma) in enumerate(((0.6, 0.05, 13.0), (0.04, 0.0, 1.0))):
+        base = texture(300 + seed, h=480, w=640, sigma=sigma, contrast=contrast, noise=noise,
+                       mean=0.25)  # fmt: skip
+        y = np.arange(480)[:, None] / 480
+        box = (y > 0.9) & (np.arange(640)[None, :] < 0.6 * 640)
+        out.append(("partial_box", seed, np.where(box, 0.0, base)))
     return out
 
 

@@ -27,9 +27,10 @@ Working inwards from an edge (bottom first, then top):
    first three rows > 40 % flat), and the boundary must be sharp (the mean of
    max(flat, near-bg) fractions drops by >= 0.4 across three rows each side);
 5. the band must be mostly background (mean of max(flat, near-bg) >= 0.5,
-   mean flat >= 0.2), background (near ``bg``, or flat, as in a data box of
-   another grey) must cover >= 30 % of each of 8 column segments (a strip
-   across the whole width), and >= 0.2 % of its pixels must
+   mean flat >= 0.2), each of 8 column segments must be >= 30 % near ``bg``
+   or >= 60 % within 0.05 of one other level and >= 30 % flat (a data box
+   of another grey),
+   so the strip spans the whole width, and >= 0.2 % of its pixels must
    be marks (text, scale bar) differing from ``bg`` by more than 0.25.
 
 A frame with no accepted band is kept whole: shadowed or glaring edges lack
@@ -205,6 +206,13 @@ def _flat_mask(g: np.ndarray) -> np.ndarray:
     return (maximum_filter1d(g, win, axis=1) - minimum_filter1d(g, win, axis=1)) <= FLAT_RANGE
 
 
+def _dominant_fraction(v: np.ndarray) -> float:
+    """Fraction of `v` within BACKGROUND_TOL of its commonest level (64-bin mode)."""
+    bins = np.clip((v * 64).astype(np.int64), 0, 63)
+    level = float(np.median(v[bins == int(np.argmax(np.bincount(bins.ravel(), minlength=64)))]))
+    return float((np.abs(v - level) <= BACKGROUND_TOL).mean())
+
+
 def _detect_side(g: np.ndarray, flat: np.ndarray, kmin: int, kmax: int) -> int:
     """Banner height at the edge that is row 0 of `g` (0 when there is none)."""
     h = g.shape[0]
@@ -254,12 +262,15 @@ def _detect_side(g: np.ndarray, flat: np.ndarray, kmin: int, kmax: int) -> int:
     # A sharp boundary: banner-like inside, image-like outside, within three rows.
     if like[k - 3 : k].mean() - like[k : k + 3].mean() < 0.4:
         return 0
-    band_g, band_bg = g[:k], near[:k] | flat[:k]  # background: near bg, or flat (boxes)
+    band_g, band_near = g[:k], near[:k]
     if like[:k].mean() < 0.5 or rowf[:k].mean() < 0.2:
         return 0
     segs = np.array_split(np.arange(g.shape[1]), 8)
-    if min(float(band_bg[:, sg].mean()) for sg in segs) < 0.3:
-        return 0
+    for sg in segs:  # each segment: background near bg, or mostly one other level (a box)
+        if band_near[:, sg].mean() >= 0.3:
+            continue
+        if _dominant_fraction(band_g[:, sg]) < 0.6 or flat[:k, sg].mean() < 0.3:
+            return 0
     marks = np.abs(band_g - bg) > MARK_CONTRAST
     if float(marks.mean()) < 0.002:
         return 0
