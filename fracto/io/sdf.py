@@ -24,7 +24,10 @@ can be checked against them.
   numbers, profile after profile (row-major, first profile = first row of the
   map), then a ``*`` line. Binary data: the header is the same ASCII lines;
   the little-endian data block starts right after the newline of the ``*``
-  line (*assumption*), followed by an optional ``*`` trailer.
+  line (*assumption*); fracto writes CRLF after the block, then the trailer.
+* Scales are written as the exact decimal of the µm value shifted by 1e-6
+  (0.123456789 µm -> ``1.23456789E-7``) and read back through decimal
+  arithmetic, so pixel sizes round-trip exactly.
 * Reading only: a binary file whose header is not ASCII lines is tried as a
   fixed 81-byte little-endian header (*assumption*, from memory: version 8
   chars, ManufacID 10, CreateDate 12, ModDate 12, NumPoints and NumProfiles
