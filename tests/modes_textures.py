@@ -9,6 +9,8 @@ fracto.classes.CLASSES (1..4), so fracto's own model classes apply.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy import ndimage
 
@@ -48,7 +50,7 @@ def texture(mode: int, shape, grain_px: float, rng) -> np.ndarray:
     else:  # parallel striations, gently wavy
         th = rng.uniform(0, np.pi)
         yy, xx = np.mgrid[0:ny, 0:nx]
-        per = 0.12 * grain_px
+        per = 0.3 * grain_px
         u = xx * np.cos(th) + yy * np.sin(th)
         v = -xx * np.sin(th) + yy * np.cos(th)
         img = 0.45 + 0.25 * np.cos(2 * np.pi * (u + 0.3 * per * np.sin(v / grain_px)) / per)
@@ -77,3 +79,32 @@ def mixed_field(size: int, grain_px: float, seed: int, modes=(1, 2, 3, 4), patch
         if sel.any():
             img[sel] = texture(m, shape, grain_px, rng)[sel]
     return img, labels
+
+
+@functools.lru_cache(maxsize=1)
+def small_training_set():
+    """Region features of a few mixed texture fields (cached for the session)."""
+    from fracto.classes import MODES
+    from fracto.modes.training import set_from_arrays
+
+    items = []
+    for seed, grain in zip(range(8), (20, 28, 36, 44) * 2, strict=True):
+        img, lab = mixed_field(256, grain, seed, patch_px=128)
+        items.append((img, lab, f"tex{seed}"))
+    rng = np.random.default_rng(50)
+    for mode, grain in zip((1, 2, 3, 4) * 2, (24, 40, 32, 26, 38, 22, 44, 34), strict=True):
+        img = texture(mode, (192, 192), grain, rng)
+        items.append((img, np.full(img.shape, mode, np.uint8), f"pure{mode}-{grain}"))
+    return set_from_arrays(items, MODES, max_regions_per_image=300, seed=0)
+
+
+@functools.lru_cache(maxsize=1)
+def small_model():
+    """A small ModeClassifier trained on :func:`small_training_set` (cached)."""
+    from fracto.classes import MODES
+    from fracto.modes.model import ModeClassifier
+
+    ts = small_training_set()
+    return ModeClassifier(MODES, max_iter=60, random_state=0).fit(
+        ts.X, ts.y, ts.groups, feature_names=ts.names
+    )

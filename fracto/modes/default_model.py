@@ -119,6 +119,7 @@ def build_default_model(
     seed: int = 0,
     cv_folds: int = 4,
     n_threads: int | None = 1,
+    max_regions: int | None = 600,
     progress: bool = True,
 ) -> dict:
     """Generate the synthetic training set, train, score, and write model + card.
@@ -140,7 +141,7 @@ def build_default_model(
         metas.append(name)
         if progress and (i + 1) % 8 == 0:
             print(f"  {i + 1}/{n_fields} fields ({time.perf_counter() - t0:.0f} s)", flush=True)
-    ts = set_from_arrays(items, MODES)
+    ts = set_from_arrays(items, MODES, max_regions_per_image=max_regions, seed=seed)
     del items
     ts.summary.update(
         {

@@ -97,8 +97,12 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
     uses_height : bool
         The feature vectors include the height-map features.
     n_threads : int or None
-        Limit of OpenMP threads while fitting (None: the library default).
+        Limit of OpenMP threads while fitting (None: the library default; the
+        default 1 avoids thread contention on shared machines).
         One thread is often faster on a shared, busy machine.
+    class_weight : "balanced" or None
+        Weight regions inversely to their class's frequency (see
+        HistGradientBoostingClassifier), so a class seen in few regions still counts.
     """
 
     def __init__(
@@ -115,7 +119,8 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         n_calibration_folds: int = 3,
         random_state: int = 0,
         uses_height: bool = False,
-        n_threads: int | None = None,
+        n_threads: int | None = 1,
+        class_weight: str | None = "balanced",
     ):
         self.classes = classes
         self.threshold = threshold
@@ -129,6 +134,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         self.random_state = random_state
         self.uses_height = uses_height
         self.n_threads = n_threads
+        self.class_weight = class_weight
 
     def _base(self):
         from sklearn.ensemble import HistGradientBoostingClassifier
@@ -139,6 +145,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
             max_leaf_nodes=self.max_leaf_nodes,
             l2_regularization=self.l2_regularization,
             early_stopping=False,
+            class_weight=self.class_weight,
             random_state=self.random_state,
         )
 
@@ -216,8 +223,11 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
 
     def predict_proba(self, X: np.ndarray) -> np.ndarray:
         """Calibrated probabilities, columns in the order of ``classes_``."""
+        from threadpoolctl import threadpool_limits
+
         X = np.asarray(X, dtype=np.float32)
-        p = self.estimator_.predict_proba(X)
+        with threadpool_limits(limits=getattr(self, "n_threads", None)):
+            p = self.estimator_.predict_proba(X)
         order = [list(self.estimator_.classes_).index(c) for c in self.classes_]
         return p[:, order]
 

@@ -1,0 +1,110 @@
+"""Region features: scale estimate, invariances, orientation and periodicity."""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+from fracto.errors import FractoInputError
+from fracto.modes.features import (
+    FEATURE_DESCRIPTIONS,
+    HEIGHT_FEATURE_DESCRIPTIONS,
+    estimate_texture_scale_px,
+    feature_names,
+    normalise_intensity,
+    region_features,
+)
+
+
+def _smooth_noise(n, sigma, seed=0):
+    rng = np.random.default_rng(seed)
+    return ndimage.gaussian_filter(rng.normal(size=(n, n)), sigma, mode="wrap")
+
+
+def test_texture_scale_of_gaussian_filtered_noise():
+    # Analytic: white noise filtered by a Gaussian of sigma s has the autocorrelation
+    # exp(-r^2 / (4 s^2)); the estimator smooths again with sigma 1 px, so
+    # s_eff^2 = s^2 + 1 and the half-correlation radius is 2 s_eff sqrt(ln 2).
+    s = 6.0
+    expected = 2.0 * np.sqrt(s**2 + 1.0) * np.sqrt(np.log(2.0))
+    got = estimate_texture_scale_px(_smooth_noise(512, s).astype(np.float32))
+    # the Hann window and a finite sample bias it a little (tolerance chosen, 15 %)
+    assert got == pytest.approx(expected, rel=0.15)
+
+
+def test_texture_scale_follows_magnification():
+    # Analytic: block-averaging an image by 2 halves every length in pixels.
+    img = _smooth_noise(1024, 8.0, seed=1).astype(np.float32)
+    half = img.reshape(512, 2, 512, 2).mean(axis=(1, 3))
+    r = estimate_texture_scale_px(img) / estimate_texture_scale_px(half)
+    assert r == pytest.approx(2.0, rel=0.12)
+
+
+def test_features_ignore_brightness_and_contrast():
+    # Analytic: robust percentile normalisation maps a*I + b (a > 0) to the same image.
+    img = _smooth_noise(256, 3.0, seed=2).astype(np.float32)
+    f1 = region_features(img)
+    f2 = region_features(0.3 * img + 5.0)
+    np.testing.assert_allclose(f1.X, f2.X, rtol=1e-3, atol=1e-3)
+
+
+def test_every_feature_is_described():
+    f = region_features(_smooth_noise(256, 3.0).astype(np.float32))
+    assert f.names == feature_names() == list(FEATURE_DESCRIPTIONS)
+    assert f.X.shape == (f.tile_grid[0] * f.tile_grid[1], len(FEATURE_DESCRIPTIONS))
+    assert all(len(d) > 10 for d in FEATURE_DESCRIPTIONS.values())
+    assert all(len(d) > 10 for d in HEIGHT_FEATURE_DESCRIPTIONS.values())
+    assert np.isfinite(f.X).all()
+
+
+def test_striations_are_coherent_and_periodic():
+    # Analytic: a pure sinusoid has all gradients parallel (structure-tensor coherence 1)
+    # and all its power at one wavelength; isotropic noise has neither.
+    n, period = 384, 12.0
+    yy, xx = np.mgrid[0:n, 0:n]
+    th = np.deg2rad(30)
+    stripes = np.cos(2 * np.pi * (xx * np.cos(th) + yy * np.sin(th)) / period)
+    fs = region_features(stripes.astype(np.float32))
+    fn = region_features(_smooth_noise(n, 2.0).astype(np.float32))
+    col = {k: i for i, k in enumerate(fs.names)}
+    assert np.median(fs.X[:, col["coh_tile_s2"]]) > 0.9
+    assert np.median(fn.X[:, col["coh_tile_s2"]]) < 0.5
+    # Analytic: under a Hann window a tone centred on a frequency bin leaves power
+    # 1 : 1/4 : 1/4 in its bin and the two neighbours along each axis, so the peak bin
+    # holds (1 / 1.5)^2 = 0.444 of the power in 2-D (less for a tone between bins).
+    peak_s = np.median(fs.X[:, col["spec_peak_frac"]])
+    assert 0.3 < peak_s <= 0.45
+    assert peak_s > 1.8 * np.median(fn.X[:, col["spec_peak_frac"]])
+    # wavelength back in image pixels: (texture scales) * texture scale on the working grid / zoom
+    s_work = fs.scale.texture_scale_px * fs.scale.zoom
+    lam = np.median(fs.X[:, col["spec_peak_wavelength"]]) * s_work / fs.scale.zoom
+    tile_px = 2 * fs.block_px
+    # one frequency bin of the tile spectrum is the resolution: |dλ| ≈ λ^2 / tile
+    assert abs(lam - period) <= period**2 / tile_px + 0.5
+
+
+def test_height_features_of_a_tilted_plane():
+    # Analytic: a plane z = a x has slope a everywhere, Sdr = sqrt(1 + a^2) - 1,
+    # planarity 1 and no residual Sq.
+    n, a, px = 256, 0.5, 0.1
+    img = _smooth_noise(n, 3.0).astype(np.float32)
+    xx = np.arange(n)[None, :] * px * np.ones((n, 1))
+    f = region_features(img, pixel_size_um=px, height_um=a * xx)
+    col = {k: i for i, k in enumerate(f.names)}
+    X = f.X
+    inner = X[:, col["h_slope_mean"]]
+    assert np.median(inner) == pytest.approx(a, rel=0.02)
+    assert np.median(X[:, col["h_sdr"]]) == pytest.approx(np.sqrt(1 + a * a) - 1, rel=0.03)
+    assert np.median(X[:, col["h_planarity"]]) > 0.999
+    assert np.median(X[:, col["h_plane_tilt"]]) == pytest.approx(a, rel=0.02)
+
+
+def test_bad_images_are_refused():
+    with pytest.raises(FractoInputError, match="blank or saturated"):
+        normalise_intensity(np.full((128, 128), 0.5))
+    with pytest.raises(FractoInputError, match="too small"):
+        region_features(_smooth_noise(20, 1.0))
+    with pytest.raises(FractoInputError, match="too small"):
+        # a coarse texture in a small frame leaves fewer than three regions a side
+        region_features(_smooth_noise(64, 12.0))
+    with pytest.raises(FractoInputError, match="pixel size"):
+        region_features(_smooth_noise(128, 2.0), height_um=np.zeros((128, 128)))
