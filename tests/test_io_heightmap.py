@@ -456,3 +456,13 @@ def test_three_column_integer_grid_with_header(tmp_path):
     p.write_text(body)
     with pytest.raises(FractoInputError):  # duplicates as x,y,z: refused with advice
         read_height_map(p)
+
+
+def test_compressed_float_tiff_written_by_opencv(tmp_path):
+    # OpenCV writes compressed TIFFs; tifffile may lack the codec, OpenCV then decodes.
+    import cv2
+
+    z = np.random.default_rng(4).normal(size=(9, 12)).astype(np.float32)
+    p = tmp_path / "cv.tif"
+    assert cv2.imwrite(str(p), z)
+    np.testing.assert_array_equal(read_height_map(p).z_um, z.astype(np.float64))
