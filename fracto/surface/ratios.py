@@ -313,17 +313,23 @@ def triangulated_area(z: np.ndarray, dx: float, dy: float) -> tuple[float, float
 
 
 def surface_area_ratio(z: np.ndarray, dx: float, dy: float) -> float:
-    """Surface area ratio RS = true area / projected area (two triangles per cell).
+    """Surface area ratio RS = true area / projected area.
 
-    RS − 1 equals ISO 25178-2 Sdr / 100 computed on the same triangulation
-    (`triangulated_area`). For any single plane of tilt θ, RS = sec θ exactly.
+    The true area is that of the bilinear interpolant of the grid
+    (:func:`fracto.surface.areal.developed_area`), the same area ISO 25178-2
+    Sdr is computed from, so ``RS − 1 = Sdr / 100`` exactly. For any single
+    plane of tilt θ, RS = sec θ exactly. (:func:`triangulated_area` gives the
+    two-triangle area, an upper bound kept for comparison.)
 
     References
     ----------
     .. [1] E. E. Underwood and K. Banerji, ASM Handbook Vol. 12, 1987.
     .. [2] ISO 25178-2:2012, clause 4.3.2 (Sdr).
     """
-    true_area, projected = triangulated_area(z, dx, dy)
+    from fracto.surface.areal import developed_area
+
+    z = _check_map(z, dx, dy)
+    true_area, projected = developed_area(z, dx, dy)
     if projected == 0:
         raise _no_valid("grid cells (four valid corners)")
     return true_area / projected
