@@ -117,3 +117,17 @@ def test_writes_json_file_atomically(capsys, sine_npy, tmp_path):
     assert code == 0
     assert json.loads(out_file.read_text())["parameters"]["Sq"]["unit"] == "um"
     assert not list(tmp_path.glob("*.part"))
+
+
+def test_threads_do_not_change_numbers_and_rs_is_sdr():
+    # RS (Underwood) and Sdr (ISO 25178-2) are one quantity: RS = 1 + Sdr/100.
+    from fracto.io.calibration import PixelSize
+    from fracto.surface.measure import measure_surface
+    from fracto.synth.fields import gaussian_correlated_field
+
+    z = gaussian_correlated_field((96, 128), 1.5, 0.25, 0.25, rms_um=0.4, seed=7)
+    ps = PixelSize.square(0.25, "test")
+    one = measure_surface(z, ps, threads=1).to_dict()["parameters"]
+    two = measure_surface(z, ps, threads=2).to_dict()["parameters"]
+    assert one == two
+    assert math.isclose(one["RS"]["value"], 1 + one["Sdr"]["value"] / 100, rel_tol=1e-12)

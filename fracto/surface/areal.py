@@ -237,17 +237,25 @@ def developed_area(z: np.ndarray, dx: float, dy: float) -> tuple[float, float]:
         ey = np.diff(b, axis=0) * (1.0 / dy)  # y slopes on column edges, (rows-1, nx)
         ex_lo, ex_hi = ex[:-1], ex[1:]
         ey_lo, ey_hi = ey[:, :-1], ey[:, 1:]
-        acc = None
+        acc = np.zeros((ex_lo.shape[0], ex_lo.shape[1]))
+        zx2 = np.empty_like(acc)
+        g = np.empty_like(acc)
+        t = np.empty_like(acc)
         for v in (g0, g1):
-            zx2 = ex_lo * (1.0 - v) + ex_hi * v
+            np.multiply(ex_lo, 1.0 - v, out=zx2)
+            zx2 += ex_hi * v
             zx2 *= zx2
             for u in (g0, g1):
-                g = ey_lo * (1.0 - u) + ey_hi * u
+                np.multiply(ey_lo, 1.0 - u, out=g)
+                g += ey_hi * u
                 g *= g
                 g += zx2
                 # √(1 + g) − 1 = g / (√(1 + g) + 1): no cancellation on gentle slopes
-                term = g / (np.sqrt(1.0 + g) + 1.0)
-                acc = term if acc is None else acc + term
+                np.add(g, 1.0, out=t)
+                np.sqrt(t, out=t)
+                t += 1.0
+                g /= t
+                acc += g
         ok = ~np.isnan(acc)
         c = int(np.count_nonzero(ok))
         if c:

@@ -10,6 +10,7 @@ module (:mod:`fracto.surface.areal`, :mod:`fracto.surface.features`,
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -141,6 +142,26 @@ def _check_map(z: np.ndarray) -> np.ndarray:
     return z
 
 
+#: Report order of the parameters, family by family as in :data:`GROUPS`.
+ORDER: tuple[str, ...] = (
+    *("Sa", "Sq", "Ssk", "Sku", "Sp", "Sv", "Sz"),
+    *("Sdq", "Sdr"),
+    *("Sal", "Str", "Std"),
+    *("Smr", "Smc", "Sxp", "Vm", "Vv", "Vmp", "Vmc", "Vvc", "Vvv"),
+    *("Sk", "Spk", "Svk", "Smr1", "Smr2"),
+    *("Spd", "Spc", "S10z", "S5p", "S5v"),
+    *("Ra", "Rq", "Rz", "Rsk", "Rku", "RSm", "Rdq"),
+    *("RL_x", "RL_y", "RL", "RS", "RS_pickens_gurland", "RS_measured_to_predicted"),
+    *("D_psd", "D_variogram", "D_cube"),
+)
+
+
+def _ordered(values: dict[str, float]) -> list[str]:
+    """Parameter symbols in report order (:data:`ORDER`), then any others."""
+    known = [k for k in ORDER if k in values]
+    return known + [k for k in values if k not in ORDER]
+
+
 def _fractal_estimates(z: np.ndarray, dx: float, dy: float) -> dict[str, tuple[float, dict]]:
     """Each fractal estimator on its own: one that cannot fit gives NaN and a note.
 
@@ -192,6 +213,7 @@ def measure_surface(
     profile_direction: str | float = "x",
     profile_cutoff_um: float | None = None,
     groups: tuple[str, ...] = GROUPS,
+    threads: int = 2,
 ) -> SurfaceMeasurement:
     """Condition a height map and compute the ISO 25178-2 and fractography parameters.
 
@@ -222,6 +244,9 @@ def measure_surface(
         ISO 16610-21 profile filter cutoff for the profile parameters.
     groups : tuple of str
         Parameter families to compute (see :data:`GROUPS`).
+    threads : int
+        1 computes everything in this thread; 2 (default) computes the feature
+        and profile parameters in a second thread. The numbers are the same.
 
     Returns
     -------
@@ -263,32 +288,55 @@ def measure_surface(
     if not np.isfinite(zc).any():
         raise FractoInputError("No measured points are left after conditioning.")
 
-    values: dict[str, float] = {}
-    extras: dict[str, dict] = {}
-    if "height" in groups:
-        values.update(areal.height_parameters(zc))
-    if "hybrid" in groups:
-        values.update(areal.gradient_parameters(zc, dx, dy))
-    if "spatial" in groups:
-        values.update(areal.spatial_parameters(zc, dx, dy, s=acf_threshold))
-    if "functional" in groups:
-        curve = areal.material_ratio_curve(zc)
-        values.update(areal.material_ratio_parameters(curve, p=p, q=q))
-        values.update(areal.sk_parameters(curve))
-    if "feature" in groups:
-        values.update(features.feature_parameters(zc, dx, dy, pruning=pruning))
-    if "profile" in groups:
-        values.update(
-            profile.areal_profile_parameters(
-                zc, dx, dy, direction=profile_direction, cutoff_um=profile_cutoff_um
+    def feature_and_profile() -> dict[str, float]:
+        out: dict[str, float] = {}
+        if "feature" in groups:
+            out.update(features.feature_parameters(zc, dx, dy, pruning=pruning))
+        if "profile" in groups:
+            out.update(
+                profile.areal_profile_parameters(
+                    zc, dx, dy, direction=profile_direction, cutoff_um=profile_cutoff_um
+                )
             )
-        )
-    if "fractography" in groups:
-        values.update(ratios.fractography_ratios(zc, dx, dy))
-    if "fractal" in groups:
-        for key, est in _fractal_estimates(zc, dx, dy).items():
-            values[key], extras[key] = est
-            extras[key]["fit_range_unit"] = pixel_size.lateral_unit
+        return out
+
+    def the_rest() -> tuple[dict[str, float], dict[str, dict]]:
+        out: dict[str, float] = {}
+        extra: dict[str, dict] = {}
+        if "height" in groups:
+            out.update(areal.height_parameters(zc))
+        if "hybrid" in groups:
+            out.update(areal.gradient_parameters(zc, dx, dy))
+        if "spatial" in groups:
+            out.update(areal.spatial_parameters(zc, dx, dy, s=acf_threshold))
+        if "functional" in groups:
+            curve = areal.material_ratio_curve(zc)
+            out.update(areal.material_ratio_parameters(curve, p=p, q=q))
+            out.update(areal.sk_parameters(curve))
+            del curve
+        if "fractography" in groups:
+            sdr = out.get("Sdr")
+            rs = None if sdr is None or not math.isfinite(sdr) else 1.0 + sdr / 100.0
+            out.update(ratios.fractography_ratios(zc, dx, dy, rs=rs))
+        if "fractal" in groups:
+            for key, est in _fractal_estimates(zc, dx, dy).items():
+                out[key], extra[key] = est
+                extra[key]["fit_range_unit"] = pixel_size.lateral_unit
+        return out, extra
+
+    # The two halves are independent and of similar cost; NumPy, SciPy and the
+    # FFTs release the GIL, so two threads use both cores. Results do not
+    # depend on the number of threads.
+    if threads > 1:
+        with ThreadPoolExecutor(max_workers=2) as pool:
+            first = pool.submit(feature_and_profile)
+            rest, extras = the_rest()
+            fp = first.result()
+    else:
+        fp = feature_and_profile()
+        rest, extras = the_rest()
+    merged = {**rest, **fp}
+    values = {k: merged[k] for k in _ordered(merged)}
 
     params: dict[str, Parameter] = {}
     for key, val in values.items():
@@ -307,5 +355,6 @@ def measure_surface(
         "profile_direction": profile_direction,
         "profile_cutoff_um": profile_cutoff_um,
         "groups": list(groups),
+        "threads": threads,
     }
     return SurfaceMeasurement(params, valid_fraction, pixel_size, processing, tuple(z.shape))

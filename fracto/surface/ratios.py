@@ -375,8 +375,13 @@ def fractography_ratios(
     *,
     n_directions: int = 12,
     max_samples: int = DEFAULT_MAX_SAMPLES,
+    rs: float | None = None,
 ) -> dict[str, float]:
     """All fractography ratios of a height map in one call.
+
+    Pass `rs` when the caller already has it (``1 + Sdr/100`` from
+    :func:`fracto.surface.areal.gradient_parameters`, the same area) to save
+    computing the developed area twice.
 
     Returns
     -------
@@ -412,7 +417,8 @@ def fractography_ratios(
     rl = float(np.mean(list(by_angle.values())))
     rl_x = by_angle[0.0]
     rl_y = by_angle[90.0] if 90.0 in by_angle else profile_length_ratio(z, dx, dy, direction="y")
-    rs = surface_area_ratio(z, dx, dy)
+    if rs is None:
+        rs = surface_area_ratio(z, dx, dy)
     rs_pg = pickens_gurland_rs(rl)
     return {
         "RL_x": rl_x,
