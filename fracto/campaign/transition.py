@@ -156,10 +156,17 @@ class _Scale:
 
 
 def _residual_fn(model: str, u: np.ndarray, v: np.ndarray):
+    """Residuals and their analytic Jacobian in scaled units."""
     if model == "sigmoid":
 
         def res(q: np.ndarray) -> np.ndarray:
             return q[0] + q[1] * np.tanh((u - q[2]) / q[3]) - v
+
+        def jac(q: np.ndarray) -> np.ndarray:
+            z = (u - q[2]) / q[3]
+            th = np.tanh(z)
+            d = q[1] * (1.0 - th * th) / q[3]
+            return np.column_stack([np.ones_like(u), th, -d, -d * z])
 
     else:
 
@@ -167,16 +174,27 @@ def _residual_fn(model: str, u: np.ndarray, v: np.ndarray):
             z = (u - q[2]) / q[3]
             return q[0] + q[1] * np.exp(-0.5 * z * z) - v
 
-    return res
+        def jac(q: np.ndarray) -> np.ndarray:
+            z = (u - q[2]) / q[3]
+            g = np.exp(-0.5 * z * z)
+            d = q[1] * g * z / q[3]
+            return np.column_stack([np.ones_like(u), g, d, d * z])
+
+    return res, jac
 
 
 def _starts(model: str, u: np.ndarray, v: np.ndarray, lo: np.ndarray, hi: np.ndarray):
     out = []
     if model == "sigmoid":
+        # the sign of the slope of a straight line through the data first, the other
+        # sign from the middle only (a sigmoid whose direction opposes the trend is rare)
+        slope = float(np.polyfit(u, v, 1)[0]) if np.ptp(u) > 0 else 1.0
+        sign = 1.0 if slope >= 0 else -1.0
         for u0 in (-0.8, -0.4, 0.0, 0.4, 0.8):
             for c in (0.15, 0.5):
-                for sign in (1.0, -1.0):
-                    out.append([float(np.mean(v)), 0.5 * sign, u0, c])
+                out.append([float(np.mean(v)), 0.5 * sign, u0, c])
+        for c in (0.15, 0.5):
+            out.append([float(np.mean(v)), -0.5 * sign, 0.0, c])
     else:
         order = np.argsort(v)[::-1]
         peaks = {float(u[i]) for i in order[:3]} | {0.0}
@@ -197,12 +215,12 @@ def _fit_scaled(
     from scipy.optimize import least_squares
 
     lo, hi = scale.bounds(model)
-    fun = _residual_fn(model, u, v)
+    fun, jac = _residual_fn(model, u, v)
     best: tuple[np.ndarray, float, bool] | None = None
     for q0 in starts if starts is not None else _starts(model, u, v, lo, hi):
         q0 = np.clip(q0, lo + 1e-9, hi - 1e-9)
         try:
-            r = least_squares(fun, q0, bounds=(lo, hi), method="trf", max_nfev=400)
+            r = least_squares(fun, q0, jac=jac, bounds=(lo, hi), method="trf", max_nfev=400)
         except (ValueError, FloatingPointError):
             continue
         rss = float(np.sum(r.fun**2))
