@@ -252,3 +252,28 @@ def test_report_loads_in_headless_chromium(report):
     assert CAUTION in " ".join(caution.split())
     external = [u for u in requests if not u.startswith(("file:", "data:"))]
     assert not external, external
+
+
+def test_report_without_transition_fits(tmp_path):
+    # the batch's stand-in when the analysis could not run (too few temperatures)
+    rows, _ = _fabricated_campaign(tmp_path)
+    rows = rows[:6]
+    tr = {
+        "transition_temperature_C": None,
+        "transition_estimated": False,
+        "transition_basis": None,
+        "fits": {},
+        "available": False,
+        "note": "The campaign has 2 distinct test temperatures.",
+    }
+    path = write_report(
+        tmp_path / "out", images=rows, specimens=[], transition=tr, provenance={}, overlays={}
+    )
+    p = _Collect()
+    p.feed(path.read_text(encoding="utf-8"))
+    body = html.unescape(" ".join(p.text))
+    assert "not available" in body and "2 distinct test temperatures" in body
+    assert CAUTION in " ".join(body.split())
+    assert "plot-roughness" in p.ids  # roughness needs no fit
+    for img in p.imgs:
+        assert _decode(img["src"])[1] is not None

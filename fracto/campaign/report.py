@@ -30,6 +30,9 @@ MAX_EMBED_BYTES = 150_000
 JPEG_QUALITY = 80
 #: Longest side of a re-encoded thumbnail (pixels).
 THUMB_MAX_SIDE_PX = 400
+#: All thumbnails of a large campaign together stay within about this many bytes
+#: (before base64, which adds a third): 1000 fields get about 20 kB each.
+TOTAL_THUMBNAIL_BUDGET_BYTES = 20_000_000
 
 _CSS = """
 body{font-family:sans-serif;margin:1.5em auto;max-width:72em;padding:0 1em;color:#111;
@@ -90,20 +93,37 @@ def _mime_of(data: bytes) -> str | None:
     return None
 
 
-def embed_thumbnail(path: Path) -> tuple[str, int] | None:
+def thumbnail_budget_bytes(n_thumbnails: int) -> int:
+    """Largest embedded size of one thumbnail in a report of `n_thumbnails` fields.
+
+    :data:`MAX_EMBED_BYTES` for small campaigns; for large ones the share of
+    :data:`TOTAL_THUMBNAIL_BUDGET_BYTES` per field, but never below 15 kB.
+    """
+    if n_thumbnails <= 0:
+        return MAX_EMBED_BYTES
+    return int(min(MAX_EMBED_BYTES, max(15_000, TOTAL_THUMBNAIL_BUDGET_BYTES // n_thumbnails)))
+
+
+#: Re-encoding steps (longest side px, JPEG quality), tried in turn until one fits.
+_REENCODE_STEPS = ((THUMB_MAX_SIDE_PX, JPEG_QUALITY), (320, 80), (256, 75), (200, 70))
+
+
+def embed_thumbnail(path: Path, max_bytes: int = MAX_EMBED_BYTES) -> tuple[str, int] | None:
     """Data URI of a thumbnail file and its size in bytes (before base64).
 
-    PNG or JPEG files up to :data:`MAX_EMBED_BYTES` are embedded as they are; larger
-    files or other formats are decoded with OpenCV, reduced to at most
-    :data:`THUMB_MAX_SIDE_PX` on the longest side (area averaging) and re-encoded as
-    JPEG at quality :data:`JPEG_QUALITY`. Returns ``None`` when the file cannot be read.
+    PNG or JPEG files up to `max_bytes` are embedded as they are; larger files or other
+    formats are decoded with OpenCV, reduced to at most :data:`THUMB_MAX_SIDE_PX` on the
+    longest side (area averaging) and re-encoded as JPEG at quality
+    :data:`JPEG_QUALITY`; if that is still above `max_bytes`, smaller sides and
+    qualities follow (320 px q80, 256 px q75, 200 px q70, the last one kept whatever
+    its size). Returns ``None`` when the file cannot be read.
     """
     try:
         data = Path(path).read_bytes()
     except OSError:
         return None
     mime = _mime_of(data)
-    if mime is not None and len(data) <= MAX_EMBED_BYTES:
+    if mime is not None and len(data) <= max_bytes:
         return _data_uri(data, mime), len(data)
     import cv2
     import numpy as np
@@ -112,15 +132,20 @@ def embed_thumbnail(path: Path) -> tuple[str, int] | None:
     if img is None:
         return None
     h, w = img.shape[:2]
-    s = THUMB_MAX_SIDE_PX / max(h, w)
-    if s < 1:
-        img = cv2.resize(
-            img, (max(1, round(w * s)), max(1, round(h * s))), interpolation=cv2.INTER_AREA
-        )
-    ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, JPEG_QUALITY])
-    if not ok:
-        return None
-    out = buf.tobytes()
+    out = b""
+    for side, quality in _REENCODE_STEPS:
+        s = side / max(h, w)
+        small = img
+        if s < 1:
+            small = cv2.resize(
+                img, (max(1, round(w * s)), max(1, round(h * s))), interpolation=cv2.INTER_AREA
+            )
+        ok, buf = cv2.imencode(".jpg", small, [cv2.IMWRITE_JPEG_QUALITY, quality])
+        if not ok:
+            return None
+        out = buf.tobytes()
+        if len(out) <= max_bytes:
+            break
     return _data_uri(out, "image/jpeg"), len(out)
 
 
@@ -151,7 +176,8 @@ def _summary(images: list[dict], specimens: list[dict], transition: dict) -> str
     temps = [t for t in temps if math.isfinite(t)]
     t = transition.get("transition_temperature_C")
     if t is None:
-        ttext = _e(transition.get("transition_note") or "not available")
+        why = transition.get("transition_note") or transition.get("note")
+        ttext = "not available" + (f" ({_e(why)})" if why else "")
     elif transition.get("transition_estimated"):
         b = transition.get("transition_basis") or {}
         ttext = (
@@ -397,10 +423,42 @@ def _fraction_text(r: dict) -> str:
     return ", ".join(bits)
 
 
+#: Plain names of the Okabe-Ito colours (Okabe & Ito 2008) used for the modes.
+_COLOUR_NAMES = {
+    "#0072B2": "blue",
+    "#E69F00": "orange",
+    "#009E73": "bluish green",
+    "#CC79A7": "reddish purple",
+    "#56B4E9": "sky blue",
+    "#D55E00": "vermillion",
+    "#F0E442": "yellow",
+}
+
+
+def _colour_key() -> str:
+    """Colour key of the overlays: a swatch, the colour's name and the mode's name."""
+    from fracto.modes.overlay import class_colours
+
+    items = []
+    for m, c in class_colours(MODES).items():
+        items.append(
+            f'<li><span style="display:inline-block;width:1.4em;height:.9em;'
+            f'background:{c};border:1px solid #000;vertical-align:middle"></span> '
+            f"{_e(m)} ({_e(_COLOUR_NAMES.get(c.upper(), c))})</li>"
+        )
+    items.append("<li>unclassified: no tint (grey image)</li>")
+    return (
+        "<p class='small'>Mode overlays: each field's image with a translucent colour per "
+        "mode; the fractions are written under each thumbnail.</p>"
+        f"<ul class='small' id='colour-key'>{''.join(items)}</ul>"
+    )
+
+
 def _thumbnails(images: list[dict], overlays: dict[str, Path], out_dir: Path) -> tuple[str, dict]:
     figs = []
     sizes = []
     missing = 0
+    budget = thumbnail_budget_bytes(sum(r.get("path") in overlays for r in images))
     for r in images:
         p = r.get("path")
         th = overlays.get(p) if p is not None else None
@@ -409,7 +467,7 @@ def _thumbnails(images: list[dict], overlays: dict[str, Path], out_dir: Path) ->
         th = Path(th)
         if not th.is_absolute() and not th.exists():
             th = out_dir / th
-        emb = embed_thumbnail(th)
+        emb = embed_thumbnail(th, budget)
         frac = _fraction_text(r)
         label = f"{p} — specimen {r.get('specimen')}, {_fmt(r.get('temperature_C'), 'g')} °C"
         if emb is None:
@@ -438,11 +496,7 @@ def _thumbnails(images: list[dict], overlays: dict[str, Path], out_dir: Path) ->
     if not figs:
         body = "<p>No overlays were made for this campaign.</p>"
     else:
-        body = (
-            "<p class='small'>Mode overlays (colours: blue intergranular, orange transgranular, "
-            "green ductile, purple fatigue, grey unclassified; each overlay carries its own "
-            "legend).</p><div class='thumbs'>" + "".join(figs) + "</div>"
-        )
+        body = _colour_key() + "<div class='thumbs'>" + "".join(figs) + "</div>"
     return f'<section id="fields"><h2>Fields</h2>{body}</section>', stats
 
 
