@@ -25,7 +25,17 @@ def cli() -> None:
 
 
 #: One module of this package per command; each defines ``command``.
-COMMAND_MODULES = ("measure", "synth", "classify", "train", "facets", "stereo", "crackpath")
+COMMAND_MODULES = (
+    "measure",
+    "synth",
+    "classify",
+    "train",
+    "facets",
+    "stereo",
+    "crackpath",
+    "batch",
+    "transition",
+)
 
 
 def _register() -> None:
