@@ -22,7 +22,12 @@ import numpy as np
 import pytest
 
 from fracto import CAUTION
-from fracto.campaign.report import THUMB_MAX_SIDE_PX, write_report
+from fracto.campaign.report import (
+    THUMB_MAX_SIDE_PX,
+    embed_thumbnail,
+    thumbnail_budget_bytes,
+    write_report,
+)
 from fracto.campaign.transition import analyse_campaign
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -83,6 +88,15 @@ def _fabricated_campaign(folder: Path):
     cv2.imwrite(str(big), rng.integers(0, 256, (900, 1200, 3), dtype=np.uint8))
     assert big.stat().st_size > 150_000
     overlays[rows[1]["path"]] = big
+    rows.append(
+        {
+            "path": "Kestrel-x/field0_labels.png",
+            "specimen": "Kestrel-x",
+            "temperature_C": 0.0,
+            "status": "not scored",
+            "error": "Ground-truth label image; not scored.",
+        }
+    )
     rows.append(
         {
             "path": "Kestrel-x/field0_sem.png",
@@ -186,6 +200,13 @@ def test_report_is_self_contained_html(report):
         assert spec in body
     assert "0" * 64 in body and "provenance" in p.ids
     assert "-40.0 °C (given)" in body
+    # a row not scored by design is listed, but neither as a failure nor as a warning
+    assert "2 field(s) failed or were flagged" in body
+    assert "1 row(s) not scored by design" in body
+    # the colour key names every mode beside its swatch
+    assert "colour-key" in p.ids
+    for mode, colour in (("intergranular", "blue"), ("ductile", "bluish green")):
+        assert f"{mode} ({colour})" in body
 
 
 def test_report_plots_are_pngs_of_sensible_size(report):
@@ -277,3 +298,21 @@ def test_report_without_transition_fits(tmp_path):
     assert "plot-roughness" in p.ids  # roughness needs no fit
     for img in p.imgs:
         assert _decode(img["src"])[1] is not None
+
+
+def test_thumbnail_budget_for_large_campaigns(tmp_path):
+    # 1000 fields share a 20 MB budget: 20 kB each; small campaigns keep 150 kB each
+    assert thumbnail_budget_bytes(10) == 150_000
+    assert thumbnail_budget_bytes(1000) == 20_000
+    assert thumbnail_budget_bytes(10**6) == 15_000
+    rng = np.random.default_rng(2)
+    img = cv2.GaussianBlur(rng.normal(128, 60, (512, 512)), (0, 0), 2).clip(0, 255)
+    f = tmp_path / "t.jpg"
+    cv2.imwrite(str(f), img.astype(np.uint8), [cv2.IMWRITE_JPEG_QUALITY, 95])
+    size = f.stat().st_size
+    uri, n = embed_thumbnail(f, max_bytes=size)  # within budget: embedded unchanged
+    assert n == size and base64.b64decode(uri.split(",", 1)[1]) == f.read_bytes()
+    uri, n = embed_thumbnail(f, max_bytes=20_000)
+    mime, arr = _decode(uri)
+    assert mime == "image/jpeg" and n <= 20_000 and max(arr.shape[:2]) <= THUMB_MAX_SIDE_PX
+    assert embed_thumbnail(tmp_path / "missing.jpg") is None

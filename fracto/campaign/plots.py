@@ -69,13 +69,14 @@ def _mark_transition(ax, transition: dict) -> None:
         ax.axvspan(ci[0], ci[1], color="0.85", zorder=0)
     ax.annotate(
         f"T_tr = {t:.0f} °C ({label})",
-        xy=(t, 1.0),
+        xy=(t, 0.02),
         xycoords=("data", "axes fraction"),
-        xytext=(3, -3),
+        xytext=(3, 0),
         textcoords="offset points",
         ha="left",
-        va="top",
-        fontsize=8,
+        va="bottom",
+        rotation=90,
+        fontsize=7,
     )
 
 

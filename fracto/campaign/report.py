@@ -50,6 +50,7 @@ figcaption{font-size:.85em;color:#333}
 .thumbs figure{width:210px;margin:0;border:1px solid #ccc;padding:4px}
 .thumbs img{width:200px;height:auto;display:block}
 .warn{color:#8a3b00}.small{font-size:.8em;color:#444}
+.wide{overflow-x:auto}
 pre{font-size:.75em;background:#f6f6f6;padding:.5em;overflow-x:auto}
 """
 
@@ -164,12 +165,26 @@ def _status_ok(row: dict) -> bool:
     return st is None or str(st).strip().lower() in ("ok", "")
 
 
+#: Statuses of rows left out on purpose (e.g. ground-truth label images): not failures.
+_NOT_SCORED = ("not scored", "skipped")
+
+
+def _not_scored(row: dict) -> bool:
+    return str(row.get("status") or "").strip().lower() in _NOT_SCORED
+
+
+def _failed(row: dict) -> bool:
+    return not _status_ok(row) and not _not_scored(row)
+
+
 # ---------------------------------------------------------------------- sections
 
 
 def _summary(images: list[dict], specimens: list[dict], transition: dict) -> str:
     n = len(images)
     n_ok = sum(_status_ok(r) for r in images)
+    n_failed = sum(_failed(r) for r in images)
+    n_skipped = sum(_not_scored(r) for r in images)
     names = {str(r.get("specimen")) for r in images if r.get("specimen") not in (None, "")}
     n_spec = len(names) or len(specimens)
     temps = sorted({_f(r.get("temperature_C")) for r in images} - {math.nan})
@@ -192,8 +207,13 @@ def _summary(images: list[dict], specimens: list[dict], transition: dict) -> str
         '<section id="summary"><h2>Campaign</h2><table>'
         f'<tr><th class="l">fields</th><td>{n}</td></tr>'
         f'<tr><th class="l">fields scored</th><td>{n_ok}</td></tr>'
-        f'<tr><th class="l">fields failed</th><td>{n - n_ok}</td></tr>'
-        f'<tr><th class="l">specimens</th><td>{n_spec}</td></tr>'
+        f'<tr><th class="l">fields failed</th><td>{n_failed}</td></tr>'
+        + (
+            f'<tr><th class="l">rows not scored (by design)</th><td>{n_skipped}</td></tr>'
+            if n_skipped
+            else ""
+        )
+        + f'<tr><th class="l">specimens</th><td>{n_spec}</td></tr>'
         f'<tr><th class="l">test temperatures</th><td>{len(temps)} ({trange})</td></tr>'
         f'<tr><th class="l">transition temperature</th><td class="l">{ttext}</td></tr>'
         "</table></section>"
@@ -273,9 +293,10 @@ def _fits_table(transition: dict) -> str:
 
 def _quality(images: list[dict]) -> str:
     rows = []
+    skipped = [r for r in images if _not_scored(r)]
     for r in images:
         reasons = []
-        if not _status_ok(r):
+        if _failed(r):
             reasons.append(f"status {r.get('status')}: {r.get('error') or 'no reason given'}")
         if _is_false(r.get("fit_to_score")):
             reasons.append(
@@ -296,6 +317,15 @@ def _quality(images: list[dict]) -> str:
             "<tr><th class='l'>field</th><th class='l'>specimen</th><th class='l'>reason</th></tr>"
             + "".join(rows)
             + "</table>"
+        )
+    if skipped:
+        items = "".join(
+            f"<li>{_e(r.get('path'))}: {_e(r.get('error') or r.get('status'))}</li>"
+            for r in skipped
+        )
+        body += (
+            f"<details><summary>{len(skipped)} row(s) not scored by design</summary>"
+            f"<ul class='small'>{items}</ul></details>"
         )
     return f'<section id="quality"><h2>Quality warnings</h2>{body}</section>'
 
@@ -323,7 +353,7 @@ def _specimen_table(specimens: list[dict], transition: dict) -> str:
     head = "".join(f"<th>{_e(c)}<br><span class='small'>mean ± sd</span></th>" for c in cols)
     body = []
     for r in sorted(rows, key=lambda d: (_f(d.get("temperature_C")), str(d.get("specimen")))):
-        n = r.get("n", r.get("n_fields"))
+        n = _fmt(r.get("n", r.get("n_fields")), ".0f")
         cells = []
         for c in cols:
             m, s = _spec_value(r, c)
@@ -336,11 +366,8 @@ def _specimen_table(specimens: list[dict], transition: dict) -> str:
         )
     return (
         '<section id="specimens"><h2>Specimens</h2>'
-        "<table><tr><th class='l'>specimen</th><th>temperature °C</th><th>fields</th>"
-        + head
-        + "</tr>"
-        + "".join(body)
-        + "</table></section>"
+        "<div class='wide'><table><tr><th class='l'>specimen</th><th>temperature °C</th>"
+        "<th>fields</th>" + head + "</tr>" + "".join(body) + "</table></div></section>"
     )
 
 
@@ -484,7 +511,7 @@ def _thumbnails(images: list[dict], overlays: dict[str, Path], out_dir: Path) ->
             f"{_fmt(r.get('temperature_C'), 'g')} °C){': ' + frac if frac else ''}"
         )
         figs.append(
-            f'<figure><img class="thumb" decoding="async" src="{uri}" alt="{_e(alt)}">'
+            f'<figure><img class="thumb" src="{uri}" alt="{_e(alt)}">'
             f"<figcaption>{_e(label)}<br><span class='small'>{_e(frac)}</span></figcaption>"
             "</figure>"
         )
