@@ -377,3 +377,28 @@ def test_cli_bad_input(tmp_path, capsys):
         assert "4 or more temperatures" in str(res.exception)
     else:
         assert "4 or more temperatures" in capsys.readouterr().err
+
+
+def test_too_few_specimens_for_aicc_of_curve_models():
+    # Burnham & Anderson (2002): AICc needs n - K - 1 > 0; the 4-parameter curves have
+    # K = 5, so 6 specimens cannot rank them -- not assessed (trend None), nothing estimated
+    rows = _campaign(temps=[-100.0, -70.0, -50.0, -30.0, -10.0, 20.0], specimens_per_t=1)
+    doc = analyse_campaign(rows, transition_temperature_C=None, n_boot=50)
+    f = doc["fits"]["ductile"]
+    assert f["aicc"]["sigmoid"] is None and f["aicc"]["constant"] is not None
+    assert f["trend"] is None and "at least 7 specimens" in f["note"]
+    assert doc["transition_temperature_C"] is None and doc["transition_note"]
+    with pytest.raises(FractoInputError, match="seed"):
+        analyse_campaign(rows, transition_temperature_C=None, seed=-1)
+
+
+def test_intervals_of_a_mode_do_not_depend_on_other_columns():
+    rows = _campaign(seed=13)
+    a = analyse_campaign(rows, transition_temperature_C=None, n_boot=80, seed=4)
+    extra = [dict(r, toughness_J=50.0 + r["temperature_C"]) for r in rows]
+    b = analyse_campaign(extra, transition_temperature_C=None, n_boot=80, seed=4)
+    assert (
+        a["fits"]["ductile"]["midpoint_temperature_ci95_C"]
+        == (b["fits"]["ductile"]["midpoint_temperature_ci95_C"])
+    )
+    assert "toughness_J" in b["fits"]

@@ -145,7 +145,7 @@ def mode_fraction_plot(transition: dict) -> bytes | None:
         elif fit.get("model") == "gaussian":
             desc = f"peak at {fit['peak_temperature_C']:.0f} °C"
         elif fit.get("model") == "constant":
-            desc = "no trend"
+            desc = "no trend" if fit.get("trend") is False else "too few specimens for a curve"
         ax.set_title(f"{m} ({desc})", fontsize=9)
         # direct label of the mode at the right end of its data
         if ok.any():

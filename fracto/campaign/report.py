@@ -243,7 +243,8 @@ def _fits_table(transition: dict) -> str:
                 f"FWHM = {_fmt(f.get('fwhm_C'), '.1f')} °C"
             )
         elif model == "constant":
-            char, off, extra = "no trend", None, f"mean {_fmt(f.get('mean_value'))}"
+            char = "no trend" if f.get("trend") is False else "curve models not assessed"
+            off, extra = None, f"mean {_fmt(f.get('mean_value'))}"
         else:
             char, off, extra = "not fitted", None, ""
         aic = f.get("aicc") or {}

@@ -31,7 +31,9 @@ References
 
 from __future__ import annotations
 
+import json
 import math
+import zlib
 from collections.abc import Iterable
 from typing import Any
 
@@ -400,7 +402,6 @@ def fit_quantity(
         "n_temperatures": n_temps,
         "model": None,
         "trend": None,
-        "_char": (None, None),
     }
     if n_temps < MIN_TEMPERATURES:
         rec["note"] = (
@@ -417,7 +418,8 @@ def fit_quantity(
     rec["k"] = {m: c["k"] for m, c in cands.items()}
     rec["k_definition"] = "regression parameters + 1 for the residual variance"
     notes = []
-    if set(valid) == {"constant"}:
+    too_few = set(valid) == {"constant"}
+    if too_few:
         notes.append(
             f"AICc of the 4-parameter models needs at least 7 specimens (n - k - 1 > 0 with "
             f"k = 5); with {n} only the constant model could be assessed."
@@ -529,10 +531,24 @@ def fit_quantity(
             if char_ci
             else None
         )
+    if too_few:
+        rec["trend"] = None  # not assessed, rather than "no trend"
     if notes:
         rec["note"] = " ".join(notes)
-    rec["_char"] = (char, char_ci)
     return rec
+
+
+def characteristic_temperature(fit: dict) -> tuple[float | None, list[float] | None]:
+    """The characteristic temperature of a fit record and its 95 % interval.
+
+    The 50 % temperature of a sigmoid, the peak temperature of a Gaussian, ``None``
+    for a constant or missing fit.
+    """
+    if fit.get("model") == "sigmoid":
+        return fit["midpoint_temperature_C"], fit.get("midpoint_temperature_ci95_C")
+    if fit.get("model") == "gaussian":
+        return fit["peak_temperature_C"], fit.get("peak_temperature_ci95_C")
+    return None, None
 
 
 def correlation(x: np.ndarray, y: np.ndarray, *, rng: np.random.Generator, n_boot: int) -> dict:
@@ -624,6 +640,8 @@ def analyse_campaign(
 
     if n_boot < 0:
         raise FractoInputError("The number of bootstrap replicates must not be negative.")
+    if int(seed) < 0:
+        raise FractoInputError("The seed must be a non-negative integer.")
     if transition_temperature_C is not None and not math.isfinite(float(transition_temperature_C)):
         raise FractoInputError("The transition temperature must be a finite number.")
     rows = list(rows)
@@ -643,10 +661,12 @@ def analyse_campaign(
             f"its {len(specimens)} usable specimen{'s' if len(specimens) != 1 else ''}; "
             f"a transition analysis needs specimens at {MIN_TEMPERATURES} or more temperatures."
         )
-    rng = np.random.default_rng(seed)
     given = None if transition_temperature_C is None else float(transition_temperature_C)
     fits: dict[str, dict] = {}
     for q in quantities:
+        # one stream per quantity, so a quantity's intervals do not depend on which
+        # other columns the campaign has
+        rng = _rng_for(seed, q)
         y = np.array([_num(s.get(q)) for s in specimens])
         name = q[: -len("_fraction")] if q.endswith("_fraction") and q[:-9] in MODES else q
         rec = {"quantity": q, "unit": "1 (area fraction)" if name in MODES else _unit_of(q)}
@@ -663,11 +683,13 @@ def analyse_campaign(
         cand = [
             (m, fits[m])
             for m in MODES
-            if m in fits and fits[m].get("trend") and fits[m]["_char"][0] is not None
+            if m in fits
+            and fits[m].get("trend")
+            and characteristic_temperature(fits[m])[0] is not None
         ]
         if cand:
             m, f = max(cand, key=lambda mf: mf[1]["variation"])
-            t_tr, estimated_ci = f["_char"]
+            t_tr, estimated_ci = characteristic_temperature(f)
             basis = {
                 "mode": m,
                 "model": f["model"],
@@ -681,26 +703,25 @@ def analyse_campaign(
                 "temperature (peaked fit)",
             }
             for fm in fits.values():
-                ch = fm["_char"][0]
+                ch, ci = characteristic_temperature(fm)
                 if ch is not None:
                     prefix = "midpoint" if fm["model"] == "sigmoid" else "peak"
                     fm[f"{prefix}_offset_C"] = ch - t_tr
-                    ci = fm["_char"][1]
                     fm[f"{prefix}_offset_ci95_C"] = [ci[0] - t_tr, ci[1] - t_tr] if ci else None
+            if f.get("extrapolated"):
+                basis["note"] = "the characteristic temperature lies outside the tested range"
         else:
             t_tr = None
             note = (
-                "No mode fraction shows a trend with temperature (AICc), so no transition "
-                "temperature could be estimated."
+                "No mode fraction shows an assessed trend with temperature (AICc), so no "
+                "transition temperature could be estimated."
             )
-    for fm in fits.values():
-        fm.pop("_char", None)
 
     corrs = []
     x_ig = np.array([_num(s.get("intergranular_fraction")) for s in specimens])
     for tc in tough:
         yt = np.array([_num(s.get(tc)) for s in specimens])
-        c = correlation(x_ig, yt, rng=rng, n_boot=n_boot)
+        c = correlation(x_ig, yt, rng=_rng_for(seed, f"r:{tc}"), n_boot=n_boot)
         corrs.append({"x": "intergranular_fraction", "y": tc, **c})
 
     out: dict[str, Any] = {
@@ -722,6 +743,7 @@ def analyse_campaign(
         "version": __version__,
         "seed": int(seed),
         "settings": {
+            "random_streams": "numpy default_rng([seed, crc32(quantity name)]) per quantity",
             "n_boot": int(n_boot),
             "confidence": 0.95,
             "models": list(MODELS),
@@ -740,9 +762,14 @@ def analyse_campaign(
         out["transition_note"] = (
             f"Estimated from the data: the {basis['model']} fit of the {basis['mode']} fraction."
         )
-    from fracto.io.safe import _clean
+    from fracto.io.safe import dumps_json
 
-    return _clean(out)
+    return json.loads(dumps_json(out, indent=None))  # NaN -> None, NumPy -> Python
+
+
+def _rng_for(seed: int, name: str) -> np.random.Generator:
+    """Generator of one quantity: seeded by the campaign seed and the quantity's name."""
+    return np.random.default_rng([int(seed), zlib.crc32(name.encode("utf-8"))])
 
 
 def _unit_of(column: str) -> str:
