@@ -382,3 +382,52 @@ def test_unreachable_scheduler_is_one_sentence(tmp_path, campaign, model_file, c
         capsys,
     )
     assert rc == 2 and "Dask scheduler" in o.err
+
+
+def test_ctrl_c_with_two_jobs_stops_cleanly_and_resumes(tmp_path, model_file, capsys):
+    camp = make_small_campaign(tmp_path / "camp", n_sem=12)
+    out = tmp_path / "out"
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    cmd = [
+        sys.executable,
+        "-m",
+        "fracto",
+        "batch",
+        str(camp),
+        "--out",
+        str(out),
+        "--model",
+        model_file,
+        "--no-report",
+        "--quiet",
+        "--n-boot",
+        "100",
+        "--jobs",
+        "2",
+    ]
+    proc = subprocess.Popen(
+        cmd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
+    db = out / "results.sqlite"
+    deadline = time.time() + 120
+    while time.time() < deadline and proc.poll() is None:
+        if db.is_file():
+            try:
+                with sqlite3.connect(db, timeout=1) as c:
+                    if c.execute("SELECT COUNT(*) FROM results").fetchone()[0] >= 2:
+                        break
+            except sqlite3.OperationalError:
+                pass
+        time.sleep(0.05)
+    assert proc.poll() is None, "the batch ended before it could be interrupted"
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert "run the same command again to resume" in err and "Traceback" not in err
+    rc, o = _batch([str(camp), "--out", str(out), "--model", model_file, "--no-report"], capsys)
+    assert rc == 0 and "0 failed" in o.out
+    rows = read_csv(out / "images.csv")
+    assert len(rows) == 13 and all(r["status"] == "ok" for r in rows)
+    with sqlite3.connect(db) as c:
+        keys = [k for (k,) in c.execute("SELECT key FROM results")]
+    assert len(keys) == len(set(keys)) == 13

@@ -147,6 +147,7 @@ def run_batch(
     from fracto.campaign.runner import ModelSpec, ScoreTask, fraction_names, run_tasks
     from fracto.campaign.store import DB_NAME, ResultStore, result_key, settings_hash
     from fracto.io.safe import write_bytes_atomic, write_json_atomic
+    from fracto.io.sidecar import find_sidecar
     from fracto.modes.model import default_model_path, load_model, sha256_of
 
     t0 = time.perf_counter()
@@ -176,8 +177,14 @@ def run_batch(
             except OSError as exc:
                 d["error"] = f"The file '{r.path}' cannot be read ({exc.strerror})."
             else:
+                side = find_sidecar(r.file)  # calibration sidecars change results too
                 item_hash = settings_hash(
-                    {**settings, "kind": r.kind, "pixel_size_um": r.pixel_size_um}
+                    {
+                        **settings,
+                        "kind": r.kind,
+                        "pixel_size_um": r.pixel_size_um,
+                        "sidecar_sha256": _sha256_file(side) if side is not None else None,
+                    }
                 )
                 d.update(
                     content_sha256=sha,

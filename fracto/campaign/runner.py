@@ -111,6 +111,11 @@ def _model(spec: ModelSpec):
 
 def init_worker(spec: ModelSpec) -> None:
     """Process-pool initializer: load the model once per worker."""
+    import signal
+
+    # Ctrl-C is handled once, by the main process (it stops the pool and keeps what is
+    # stored); workers ignore it so no traceback of theirs reaches the user.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     os.environ.setdefault("OMP_NUM_THREADS", "1")
     _model(spec)
 
@@ -119,6 +124,11 @@ def fraction_names(model) -> tuple[str, ...]:
     """Fraction names reported for a model: fracto's modes, extra classes, unclassified."""
     classes = [str(c) for c in model.classes_]
     return (*MODES, *[c for c in classes if c not in MODES], UNCLASSIFIED)
+
+
+def _hex_rgb(colour: str) -> np.ndarray:
+    h = colour.lstrip("#")
+    return np.array([int(h[k : k + 2], 16) / 255.0 for k in (0, 2, 4)], dtype=np.float32)
 
 
 def thumbnail_jpeg(
@@ -134,25 +144,33 @@ def thumbnail_jpeg(
     Colours are those of :func:`fracto.modes.overlay.class_colours`; the report
     names each colour in text, so the picture never relies on colour alone.
     """
-    from matplotlib.colors import to_rgb
     from PIL import Image
 
     from fracto.modes.overlay import class_colours
 
-    img = np.asarray(image, dtype=np.float64)
+    img = np.asarray(image, dtype=np.float32)
     finite = np.isfinite(img)
     lo, hi = np.percentile(img[finite], [1, 99]) if finite.any() else (0.0, 1.0)
     grey = np.clip((np.where(finite, img, lo) - lo) / max(hi - lo, 1e-12), 0, 1)
-    rgb = np.repeat(grey[..., None], 3, axis=2)
+    # downscale first (grey by area averaging, labels by nearest), then colour
+    ny, nx = grey.shape
+    f = max(ny, nx) / max_side_px
+    size = (max(1, round(nx / f)), max(1, round(ny / f))) if f > 1 else (nx, ny)
+    g = Image.fromarray(np.round(grey * 255).astype(np.uint8), "L")
+    if size != (nx, ny):
+        g = g.resize(size, Image.Resampling.BOX)
+    rgb = np.repeat((np.asarray(g, dtype=np.float32) / 255.0)[..., None], 3, axis=2)
     if label_map is not None:
-        lab = np.asarray(label_map)
+        lab = Image.fromarray(np.asarray(label_map).astype(np.uint8), "L")
+        if size != (nx, ny):
+            lab = lab.resize(size, Image.Resampling.NEAREST)
+        lab = np.asarray(lab)
         cols = class_colours(classes)
         for i, c in enumerate(classes, start=1):
             sel = lab == i
             if sel.any():
-                rgb[sel] = (1 - alpha) * rgb[sel] + alpha * np.asarray(to_rgb(cols[c]))
+                rgb[sel] = (1 - alpha) * rgb[sel] + alpha * _hex_rgb(cols[c])
     im = Image.fromarray(np.round(rgb * 255).astype(np.uint8), "RGB")
-    im.thumbnail((max_side_px, max_side_px), Image.Resampling.BOX)
     buf = io.BytesIO()
     im.save(buf, format="JPEG", quality=THUMBNAIL_QUALITY, optimize=True)
     return buf.getvalue()
