@@ -43,7 +43,7 @@ def evaluate(model, n_fields: int, size: int) -> dict:
     for i in range(n_fields):
         seed = SEED_BASE + i
         grain = GRAIN_PX[i % len(GRAIN_PX)]
-        img, lab, meta = synthetic_field(seed, size=size, grain_px=grain)
+        img, lab, _ = synthetic_field(seed, size=size, grain_px=grain)
         res = classify_image(img, model, seed=0, n_boot=200)
         f = res.features
         hist = mask_block_histogram(lab, f.block_grid, f.block_px, k + 1)[..., 1:]

@@ -105,6 +105,6 @@ def small_model():
     from fracto.modes.model import ModeClassifier
 
     ts = small_training_set()
-    return ModeClassifier(MODES, max_iter=60, random_state=0).fit(
+    return ModeClassifier(MODES, max_iter=40, random_state=0).fit(
         ts.X, ts.y, ts.groups, feature_names=ts.names
     )

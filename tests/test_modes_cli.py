@@ -109,6 +109,8 @@ def test_train_folders_leave_one_image_out(tmp_path, capsys):
             "--out",
             str(out),
             "--leave-one-image-out",
+            "--max-iter",
+            "20",
             "--json",
         ]
     )
@@ -144,6 +146,8 @@ def test_train_masks_with_own_class_and_bad_masks(tmp_path, capsys):
             "3",
             "--classes",
             "intergranular,transgranular,quasi-cleavage",
+            "--max-iter",
+            "20",
             "--json",
         ]
     )

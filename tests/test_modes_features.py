@@ -51,6 +51,7 @@ def test_every_feature_is_described():
     f = region_features(_smooth_noise(256, 3.0).astype(np.float32))
     assert f.names == feature_names() == list(FEATURE_DESCRIPTIONS)
     assert f.X.shape == (f.tile_grid[0] * f.tile_grid[1], len(FEATURE_DESCRIPTIONS))
+    assert feature_names(with_height=True)[-1] in HEIGHT_FEATURE_DESCRIPTIONS
     assert all(len(d) > 10 for d in FEATURE_DESCRIPTIONS.values())
     assert all(len(d) > 10 for d in HEIGHT_FEATURE_DESCRIPTIONS.values())
     assert np.isfinite(f.X).all()
@@ -80,6 +81,20 @@ def test_striations_are_coherent_and_periodic():
     tile_px = 2 * fs.block_px
     # one frequency bin of the tile spectrum is the resolution: |dλ| ≈ λ^2 / tile
     assert abs(lam - period) <= period**2 / tile_px + 0.5
+
+
+def test_context_columns_average_the_neighbouring_tiles():
+    # Analytic: the 3 x 3 mean of a feature that is 1 on one tile and 0 elsewhere is
+    # 1/9 on its eight inner neighbours and 1/4 on the corner tile's neighbours.
+    from fracto.modes.features import context_mean
+
+    X = np.zeros((25, 1))
+    X[12] = 1.0  # centre of a 5 x 5 tile grid
+    c = context_mean(X, (5, 5)).reshape(5, 5)
+    assert c[1, 1] == pytest.approx(1 / 9) and c[0, 0] == 0.0
+    X = np.zeros((25, 1))
+    X[0] = 1.0
+    assert context_mean(X, (5, 5)).reshape(5, 5)[0, 0] == pytest.approx(1 / 4)
 
 
 def test_height_features_of_a_tilted_plane():

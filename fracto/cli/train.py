@@ -25,6 +25,7 @@ import click
     "--leave-one-image-out", "loio", is_flag=True, help="Score by leave-one-image-out instead."
 )
 @click.option("--threshold", type=float, default=0.5, show_default=True)
+@click.option("--max-iter", type=int, default=100, show_default=True, help="Boosting iterations.")
 @click.option("--seed", type=int, default=0, show_default=True)
 @click.option("--json", "as_json", is_flag=True, help="Print the model card as JSON.")
 def command(
@@ -38,6 +39,7 @@ def command(
     cv_folds,
     loio,
     threshold,
+    max_iter,
     seed,
     as_json,
 ) -> None:
@@ -64,6 +66,7 @@ def command(
         banner=banner,
         n_splits="loio" if loio else cv_folds,
         threshold=threshold,
+        max_iter=max_iter,
         seed=seed,
     )
     if as_json:

@@ -114,12 +114,12 @@ def training_fields(
 def build_default_model(
     out_dir: str | Path,
     *,
-    n_fields: int = 64,
+    n_fields: int = 96,
     size: int = 512,
     seed: int = 0,
     cv_folds: int = 4,
     n_threads: int | None = 1,
-    max_regions: int | None = 600,
+    max_regions: int | None = 500,
     progress: bool = True,
 ) -> dict:
     """Generate the synthetic training set, train, score, and write model + card.
@@ -187,7 +187,7 @@ def build_default_model(
 def _main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--out", default="models/", help="output folder (default models/)")
-    p.add_argument("--fields", type=int, default=64, help="synthetic training fields")
+    p.add_argument("--fields", type=int, default=96, help="synthetic training fields")
     p.add_argument("--size", type=int, default=512, help="field side in pixels")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--cv", type=int, default=4, help="grouped cross-validation folds")

@@ -9,7 +9,9 @@ itself: the lag at which the radially averaged autocorrelation of the lightly
 smoothed image falls to one half (see :func:`estimate_texture_scale_px`).
 
 On the working grid a filter bank is computed once, at three scales (¼, ½ and 1
-texture scale), and pooled per square tile with block reductions. Tiles are
+texture scale), and pooled per square tile with block reductions; each tile
+also carries the mean of every feature over its 3 × 3 neighbourhood of tiles
+(``ctx_`` columns: the surroundings of a region). Tiles are
 2 × 2 blocks of :data:`BLOCK_SCALES` texture scales each and overlap by half,
 so each block (the unit of the mode map) is covered by up to four tiles.
 
@@ -40,7 +42,7 @@ from scipy import ndimage
 from fracto.errors import FractoInputError
 
 #: Changes whenever a feature is added, removed or computed differently.
-FEATURE_SET_VERSION = "fracto-modes-1"
+FEATURE_SET_VERSION = "fracto-modes-2"
 
 #: Texture scale on the working grid, in pixels.
 WORK_SCALE_PX = 6.0
@@ -52,6 +54,8 @@ BLOCK_SCALES = 8.0 / 3.0  # 16 px on the working grid
 ZOOM_LIMITS = (1.0 / 32.0, 1.5)
 #: Smallest working grid side (three blocks) that can be classified.
 MIN_BLOCKS = 3
+#: Append the 3 × 3-tile neighbourhood mean of every feature ("ctx_" columns).
+CONTEXT = True
 
 _SCALE_NAMES = ("s1", "s2", "s3")  # ¼, ½, 1 texture scale
 
@@ -104,18 +108,23 @@ def _describe_height() -> dict[str, str]:
     }
 
 
-#: One line per image feature, in column order.
-FEATURE_DESCRIPTIONS: dict[str, str] = _describe()
-#: One line per height-map feature (appended when a height map is used).
-HEIGHT_FEATURE_DESCRIPTIONS: dict[str, str] = _describe_height()
+def _with_context(d: dict[str, str]) -> dict[str, str]:
+    ctx = {f"ctx_{k}": f"mean over the 3 x 3 neighbouring tiles of: {v}" for k, v in d.items()}
+    return {**d, **ctx}
+
+
+_BASE = _describe()
+_BASE_HEIGHT = _describe_height()
+#: One line per image feature, in column order (tile features, then their context means).
+FEATURE_DESCRIPTIONS: dict[str, str] = _with_context(_BASE)
+#: One line per height-map feature (tile features, then context means).
+HEIGHT_FEATURE_DESCRIPTIONS: dict[str, str] = _with_context(_BASE_HEIGHT)
 
 
 def feature_names(*, with_height: bool = False) -> list[str]:
     """Column names of the feature matrix, in order."""
-    names = list(FEATURE_DESCRIPTIONS)
-    if with_height:
-        names += list(HEIGHT_FEATURE_DESCRIPTIONS)
-    return names
+    base = list(_BASE) + (list(_BASE_HEIGHT) if with_height else [])
+    return base + [f"ctx_{n}" for n in base] if CONTEXT else base
 
 
 @dataclass(frozen=True)
@@ -439,7 +448,7 @@ def region_features(
     pad = ((0, nby * b - work.shape[0]), (0, nbx * b - work.shape[1]))
     w = np.pad(work, pad, mode="reflect") if any(p[1] for p in pad) else work
     cols = _image_columns(w, s, b)
-    names = list(FEATURE_DESCRIPTIONS)
+    names = list(_BASE)
     if height_um is not None:
         if pixel_size_um is None:
             raise FractoInputError(
@@ -454,9 +463,12 @@ def region_features(
         hw = _resample(np.where(np.isfinite(h), h, np.nanmedian(h)), scale.zoom).astype(np.float64)
         hw = np.pad(hw, pad, mode="reflect") if any(p[1] for p in pad) else hw
         cols.update(_height_columns(hw, s, b, pixel_size_um / scale.zoom))
-        names += list(HEIGHT_FEATURE_DESCRIPTIONS)
+        names += list(_BASE_HEIGHT)
     X = np.column_stack([cols[n] for n in names]).astype(np.float32)
     X[~np.isfinite(X)] = 0.0
+    if CONTEXT:
+        X = np.hstack([X, context_mean(X, (nby - 1, nbx - 1))])
+        names = names + [f"ctx_{n}" for n in names]
     return RegionFeatures(
         X=X,
         names=names,
@@ -466,6 +478,15 @@ def region_features(
         image_shape=img.shape,
         scale=scale,
     )
+
+
+def context_mean(X: np.ndarray, tile_grid: tuple[int, int]) -> np.ndarray:
+    """Mean of each feature over the 3 × 3 tiles centred on each tile (fewer at edges)."""
+    ty, tx = tile_grid
+    a = X.reshape(ty, tx, -1).astype(np.float64)
+    num = ndimage.uniform_filter(a, size=(3, 3, 1), mode="constant")
+    den = ndimage.uniform_filter(np.ones((ty, tx, 1)), size=(3, 3, 1), mode="constant")
+    return (num / den).reshape(ty * tx, -1).astype(np.float32)
 
 
 def _image_columns(w: np.ndarray, s: float, b: int) -> dict[str, np.ndarray]:

@@ -471,9 +471,12 @@ def train_from_sources(
     banner: str = "auto",
     n_splits: int | str = 5,
     threshold: float = 0.5,
+    max_iter: int = 100,
     seed: int = 0,
 ) -> tuple[dict[str, Any], dict[str, Any]]:
     """Train from a mask list or class folders (what ``fracto train`` runs)."""
+    if max_iter < 1:
+        raise FractoInputError("The number of boosting iterations must be at least 1.")
     if masks:
         pairs = read_mask_list(masks)
         cls = list(classes) if classes else list(MODES)
@@ -488,5 +491,5 @@ def train_from_sources(
             raise FractoInputError(f"The folders {missing} are not among the classes {cls}.")
         ts = set_from_folders(items, scale_um=scale_um, pixel_size_um=pixel_size_um, banner=banner)
     ts.summary["classes"] = list(cls)
-    params = {"threshold": threshold, "scale_um": scale_um}
+    params = {"threshold": threshold, "scale_um": scale_um, "max_iter": max_iter}
     return train_and_save(ts, out, classes=cls, model_params=params, n_splits=n_splits, seed=seed)
