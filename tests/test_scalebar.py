@@ -321,7 +321,8 @@ def test_label_read_rate():
     on these 60 cases 1.00 for every font (DejaVu Sans: TrueType with a real µ sign;
     Hershey fonts: the label drawn with "u"); on the 180 varied banners of
     bench/bench_scalebar.py 1.00 for DejaVu Sans and 0.989 overall (178/180); one
-    wrong value was accepted (a Hershey "2.5 um" read as "25um"). The floors (0.9 TrueType, 0.85 overall) leave room for another
+    wrong value was accepted (a Hershey "2.5 um" read as "25um"). The floors
+    (0.9 TrueType, 0.85 overall) leave room for another
     Tesseract build; a broken crop, parser or OCR call falls far below them.
     """
     rates = read_rates()
