@@ -89,6 +89,9 @@ class SemImage:
         Calibration and its source.
     source : str
         The file read.
+    scale_bar : dict or None
+        What the scale-bar reader found (bar, label, reason) when it was tried
+        — only for images without another calibration — else None.
     """
 
     image: np.ndarray
@@ -98,6 +101,7 @@ class SemImage:
     banner_image: np.ndarray | None
     pixel_size: PixelSize
     source: str
+    scale_bar: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -113,6 +117,7 @@ class SemImage:
             "banner": dict(self.banner),
             "banner_shape": None if self.banner_image is None else list(self.banner_image.shape),
             "pixel_size": self.pixel_size.to_dict(),
+            "scale_bar": self.scale_bar,
         }
 
 
@@ -335,6 +340,7 @@ def read_sem_image(
     *,
     banner: str = "auto",
     pixel_size: PixelSize | str | None = None,
+    scale_bar: str | None = None,
 ) -> SemImage:
     """Read an SEM fractograph (8/16-bit TIFF, PNG, JPEG, BMP) as grey float32.
 
@@ -346,7 +352,11 @@ def read_sem_image(
         ``"auto"`` (detect), ``"none"``, ``"bottom:N"`` or ``"top:N"``.
     pixel_size : PixelSize or str, optional
         Explicit calibration; else TIFF description/resolution tags, else a
-        sidecar JSON, else unknown.
+        sidecar JSON, else the scale bar in the information banner (its label
+        read by OCR, or its length given by `scale_bar`), else unknown.
+    scale_bar : str, optional
+        Length of the banner's scale bar, e.g. ``"10um"``, when OCR should not
+        be trusted or is not installed.
 
     Returns
     -------
@@ -394,6 +404,15 @@ def read_sem_image(
     else:
         side = read_sidecar(path)
         ps = side["pixel_size"] if side["pixel_size"] is not None else PixelSize.unknown()
+    bar_info = None
+    if not ps.calibrated and (strip is not None or scale_bar is not None):
+        from fracto.io.scalebar import pixel_size_from_scale_bar
+
+        found, bar_info = pixel_size_from_scale_bar(
+            strip if strip is not None else grey, scale_bar=scale_bar
+        )
+        if found is not None:
+            ps = found
     return SemImage(
         image=grey,
         raw_dtype=raw_dtype,
@@ -402,4 +421,5 @@ def read_sem_image(
         banner_image=strip,
         pixel_size=ps,
         source=name,
+        scale_bar=bar_info,
     )

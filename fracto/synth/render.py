@@ -247,7 +247,8 @@ def _draw_banner(width: int, rows: int, px: float, rng: np.random.Generator) -> 
     cv2.putText(strip, text, (max(2, rows // 6), int(rows * 0.65)), font, fs, 230, 1, cv2.LINE_AA)
     x1 = width - bar_px - max(4, rows // 3)
     y = int(rows * 0.72)
-    cv2.rectangle(strip, (x1, y - max(2, rows // 10)), (x1 + bar_px, y), 255, -1)
+    # cv2.rectangle fills both end columns: bar_px pixels run from x1 to x1 + bar_px - 1
+    cv2.rectangle(strip, (x1, y - max(2, rows // 10)), (x1 + bar_px - 1, y), 255, -1)
     label = f"{bar_um:g} um"
     (lw, lh), _ = cv2.getTextSize(label, font, 1.0, 1)
     ls = min(0.3 * rows / lh, 0.9 * max(bar_px, 10) / lw)
