@@ -111,7 +111,8 @@ def main() -> None:
     else:
         tmp = tempfile.TemporaryDirectory(prefix="fracto-bench-img-")
         folder = Path(tmp.name)
-    files = make_images(folder, a.base)
+    make_images(folder, a.base)
+    files = sorted(folder.glob("*.png"))  # a reused --keep folder may hold more
     print(f"{len(files)} SEM images of 1024 x 1024 px in {folder}; model {model}")
     res = {}
     res["jobs1"] = run("local --jobs 1", folder, model, jobs=1)
