@@ -223,11 +223,8 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
 
     def predict_proba(self, X: np.ndarray) -> np.ndarray:
         """Calibrated probabilities, columns in the order of ``classes_``."""
-        from threadpoolctl import threadpool_limits
-
         X = np.asarray(X, dtype=np.float32)
-        with threadpool_limits(limits=getattr(self, "n_threads", None)):
-            p = self.estimator_.predict_proba(X)
+        p = self.estimator_.predict_proba(X)
         order = [list(self.estimator_.classes_).index(c) for c in self.classes_]
         return p[:, order]
 
