@@ -30,3 +30,15 @@ def test_json_nan_is_null_and_numpy_is_plain(tmp_path):
 def test_missing_folder_is_input_error(tmp_path):
     with pytest.raises(FractoInputError), atomic_write(tmp_path / "nope" / "f.txt", "w") as fh:
         fh.write("x")
+
+
+def test_written_files_follow_the_umask_not_private(tmp_path):
+    # POSIX: a new file's mode is 0666 & ~umask (what open() would give); mkstemp alone gives 0600
+    import os
+
+    umask = os.umask(0o022)
+    try:
+        write_json_atomic(tmp_path / "m.json", {"a": 1})
+    finally:
+        os.umask(umask)
+    assert (tmp_path / "m.json").stat().st_mode & 0o777 == 0o644

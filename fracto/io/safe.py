@@ -41,6 +41,10 @@ def atomic_write(path: str | os.PathLike, mode: str = "wb", **kwargs: Any) -> It
             f"Cannot write into the folder '{folder}': permission denied."
         ) from exc
     try:
+        # mkstemp makes the file private (0600); give it the usual mode under the umask
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
         with os.fdopen(fd, mode, **kwargs) as fh:
             yield fh
             fh.flush()
