@@ -42,6 +42,7 @@ import numpy as np
 import scipy.fft as sfft
 
 from fracto.errors import FractoInputError
+from fracto.surface.checks import check_spacing
 
 __all__ = [
     "MaterialRatioCurve",
@@ -76,14 +77,7 @@ def _check_map(z: np.ndarray) -> np.ndarray:
     return z
 
 
-def _check_spacing(dx: float, dy: float) -> tuple[float, float]:
-    try:
-        dx, dy = float(dx), float(dy)
-    except (TypeError, ValueError):
-        raise FractoInputError("The sampling intervals dx and dy must be numbers.") from None
-    if not (math.isfinite(dx) and math.isfinite(dy) and dx > 0 and dy > 0):
-        raise FractoInputError("The sampling intervals dx and dy must be positive lengths.")
-    return dx, dy
+_check_spacing = check_spacing
 
 
 def _check_fraction(value: float, name: str) -> float:

@@ -36,6 +36,7 @@ import scipy.fft
 from scipy import ndimage
 
 from fracto.errors import FractoInputError
+from fracto.surface.checks import check_spacing
 from fracto.surface.form import parse_form, remove_form
 
 #: α = √(ln 2 / π) ≈ 0.4697 of the ISO 16610-21 Gaussian weighting function.
@@ -209,9 +210,12 @@ def _local_linear_mean(
     return out
 
 
-def _check_spacing(dx: float, name: str = "dx") -> None:
-    if not (math.isfinite(dx) and dx > 0):
-        raise FractoInputError(f"The spacing {name} must be a positive number, not {dx!r}.")
+def _check_spacing(d: float, name: str = "dx") -> None:
+    """One spacing, checked by the shared rule (`fracto.surface.checks`)."""
+    if name == "dy":
+        check_spacing(1.0, d)
+    else:
+        check_spacing(d, 1.0)
 
 
 def _check_cutoff(

@@ -18,6 +18,7 @@ import numpy as np
 from numpy.polynomial import legendre
 
 from fracto.errors import FractoInputError
+from fracto.surface.checks import check_spacing
 
 FORM_METHODS: tuple[str, ...] = ("plane", "poly", "robust", "none")
 
@@ -352,9 +353,7 @@ def remove_form(
         raise FractoInputError(
             f"Unknown form removal '{method}'; use plane, poly, robust or none."
         )
-    for name, v in (("dx", dx), ("dy", dy)):
-        if not (math.isfinite(v) and v > 0):
-            raise FractoInputError(f"The spacing {name} must be a positive number, not {v!r}.")
+    dx, dy = check_spacing(dx, dy)
     valid = np.isfinite(z)
     n_valid = int(valid.sum())
     if method == "none":

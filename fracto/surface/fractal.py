@@ -31,6 +31,7 @@ import scipy.fft as sfft
 from scipy.optimize import minimize_scalar
 
 from fracto.errors import FractoInputError
+from fracto.surface.checks import check_spacing
 
 __all__ = [
     "FractalEstimate",
@@ -98,15 +99,7 @@ def _check_map(z: np.ndarray, dx: float, dy: float, min_size: int = 8) -> np.nda
         raise FractoInputError(
             f"The height map must be at least {min_size} points on each side for a fractal fit."
         )
-    for name, v in (("dx", dx), ("dy", dy)):
-        try:
-            ok = math.isfinite(v) and v > 0
-        except TypeError:
-            ok = False
-        if not ok:
-            raise FractoInputError(
-                f"The sampling interval {name} must be a positive length in µm."
-            )
+    check_spacing(dx, dy)
     return z
 
 

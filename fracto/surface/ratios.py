@@ -34,6 +34,7 @@ import numpy as np
 from scipy import ndimage
 
 from fracto.errors import FractoInputError
+from fracto.surface.checks import check_spacing
 
 __all__ = [
     "fractography_ratios",
@@ -56,15 +57,7 @@ def _check_map(z: np.ndarray, dx: float, dy: float) -> np.ndarray:
         raise FractoInputError("The height map must hold numbers.")
     if z.shape[0] < 2 or z.shape[1] < 2:
         raise FractoInputError("The height map must have at least 2 rows and 2 columns.")
-    for name, v in (("dx", dx), ("dy", dy)):
-        try:
-            ok = math.isfinite(v) and v > 0
-        except TypeError:
-            ok = False
-        if not ok:
-            raise FractoInputError(
-                f"The sampling interval {name} must be a positive length in µm."
-            )
+    check_spacing(dx, dy)
     return z
 
 
