@@ -327,7 +327,16 @@ def run_pool(tasks: Iterable[ScoreTask], spec: ModelSpec, *, jobs: int) -> Itera
     consumer (Ctrl-C included) pending tasks are cancelled.
     """
     it = iter(tasks)
-    ex = ProcessPoolExecutor(max_workers=jobs, initializer=init_worker, initargs=(spec,))
+    import multiprocessing
+
+    # "spawn", not fork: a parent that has already run OpenMP code (a scikit-learn
+    # prediction in this process) can leave forked children deadlocked.
+    ex = ProcessPoolExecutor(
+        max_workers=jobs,
+        mp_context=multiprocessing.get_context("spawn"),
+        initializer=init_worker,
+        initargs=(spec,),
+    )
     pending = set()
     try:
         for t in it:
