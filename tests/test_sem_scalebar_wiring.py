@@ -43,3 +43,19 @@ def test_ocr_label_calibrates(banner_png):
     im = read_sem_image(banner_png)
     assert im.pixel_size.source == "scale bar (OCR)"
     assert im.pixel_size.x_um == pytest.approx(0.1, rel=0.02)
+
+
+def test_classify_command_takes_the_scale_bar(banner_png, tmp_path, capsys):
+    # the pixel size reported by `fracto classify` is the bar's: 5 µm over the bar's pixels
+    import json
+
+    from fracto.cli import main
+    from fracto.modes.model import default_model_path
+
+    code = main(["classify", str(banner_png), "--scale-bar", "5um", "--n-boot", "50", "--json"])
+    out = capsys.readouterr().out
+    assert code == 0
+    doc = json.loads(out)
+    assert doc["pixel_size"]["source"] == "scale bar (given length)"
+    assert doc["pixel_size"]["x"] == pytest.approx(0.1, rel=0.02)
+    assert default_model_path().is_file()

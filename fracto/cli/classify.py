@@ -67,6 +67,10 @@ def format_table(d: dict) -> str:
 @click.option("--pixel-size", help="Pixel size, e.g. 0.1um (overrides the file's calibration).")
 @click.option("--banner", default="auto", show_default=True, help="auto, none, bottom:N or top:N.")
 @click.option(
+    "--scale-bar",
+    help="Length of the banner's scale bar, e.g. 10um (else its label is read by OCR).",
+)
+@click.option(
     "--model", "model_path", type=click.Path(dir_okay=False), help="Model file (.skops)."
 )
 @click.option("--trust", is_flag=True, help="Load a model holding types fracto does not expect.")
@@ -81,6 +85,7 @@ def command(
     height_map,
     pixel_size,
     banner,
+    scale_bar,
     model_path,
     trust,
     overlay,
@@ -104,7 +109,7 @@ def command(
     ps_given = PixelSize.parse(pixel_size) if pixel_size else None
     mpath = model_path or default_model_path()
     model = load_model(mpath, trust=trust)
-    img, ps, info = read_grey_image(image, banner=banner, pixel_size=ps_given)
+    img, ps, info = read_grey_image(image, banner=banner, pixel_size=ps_given, scale_bar=scale_bar)
     height = None
     if height_map:
         hm = read_height_map(height_map, pixel_size=ps_given)
@@ -128,6 +133,7 @@ def command(
     settings = {
         "threshold": res.threshold,
         "banner": banner,
+        "scale_bar": scale_bar,
         "height_map": height_map,
         "n_boot": n_boot,
     }

@@ -58,7 +58,9 @@ class TrainingSet:
         return cls(X, y, groups, names, images, summary)
 
 
-def read_grey_image(path: str | os.PathLike, *, banner: str = "auto", pixel_size=None):
+def read_grey_image(
+    path: str | os.PathLike, *, banner: str = "auto", pixel_size=None, scale_bar: str | None = None
+):
     """Read an SEM image as grey [0, 1] with fracto's reader.
 
     Returns
@@ -70,7 +72,7 @@ def read_grey_image(path: str | os.PathLike, *, banner: str = "auto", pixel_size
     p = Path(path)
     if not p.is_file():
         raise FractoInputError(f"The image file '{p}' does not exist.")
-    sem = read_sem_image(p, banner=banner, pixel_size=pixel_size)
+    sem = read_sem_image(p, banner=banner, pixel_size=pixel_size, scale_bar=scale_bar)
     return np.asarray(sem.image, dtype=np.float32), sem.pixel_size, sem.to_dict()
 
 
