@@ -14,10 +14,10 @@ from __future__ import annotations
 
 import io
 import math
-from typing import Any
 
 import numpy as np
 
+from fracto.campaign.values import cell_float as _f
 from fracto.classes import MODES
 
 #: Marker of each mode (shape as a second cue besides colour).
@@ -29,6 +29,17 @@ MARKERS: dict[str, str] = {
 }
 
 _DPI = 100
+
+
+def _specimen_series(
+    specimens: list[dict], column: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Temperatures, values and standard deviations of `column` over the specimens,
+    and the mask of specimens where both temperature and value are finite."""
+    t = np.array([_f(s.get("temperature_C")) for s in specimens])
+    y = np.array([_f(s.get(column)) for s in specimens])
+    sd = np.array([_f(s.get(f"{column}_sd")) for s in specimens])
+    return t, y, sd, np.isfinite(t) & np.isfinite(y)
 
 
 def _figure(width_in: float, height_in: float):
@@ -47,15 +58,6 @@ def _png(fig) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=_DPI)
     return buf.getvalue()
-
-
-def _f(v: Any) -> float:
-    if v is None or isinstance(v, bool):
-        return math.nan
-    try:
-        return float(v)
-    except (TypeError, ValueError):
-        return math.nan
 
 
 def _mark_transition(ax, transition: dict) -> None:
@@ -104,10 +106,7 @@ def mode_fraction_plot(transition: dict) -> bytes | None:
             continue
         m = modes[i]
         q = f"{m}_fraction"
-        t = np.array([_f(s.get("temperature_C")) for s in specimens])
-        y = np.array([_f(s.get(q)) for s in specimens])
-        sd = np.array([_f(s.get(f"{q}_sd")) for s in specimens])
-        ok = np.isfinite(t) & np.isfinite(y)
+        t, y, sd, ok = _specimen_series(specimens, q)
         ax.errorbar(
             t[ok],
             y[ok],
@@ -190,10 +189,7 @@ def roughness_plot(specimens: list[dict], transition: dict) -> bytes | None:
     fig = _figure(4.2 * len(names), 3.0)
     axes = fig.subplots(1, len(names), squeeze=False)[0]
     for ax, c in zip(axes, names, strict=True):
-        t = np.array([_f(s.get("temperature_C")) for s in specimens])
-        y = np.array([_f(s.get(c)) for s in specimens])
-        sd = np.array([_f(s.get(f"{c}_sd")) for s in specimens])
-        ok = np.isfinite(t) & np.isfinite(y)
+        t, y, sd, ok = _specimen_series(specimens, c)
         ax.errorbar(
             t[ok],
             y[ok],
@@ -275,10 +271,7 @@ def toughness_temperature_plot(transition: dict) -> bytes | None:
         return None
     name = names[0]
     fit = fits[name]
-    t = np.array([_f(s.get("temperature_C")) for s in specimens])
-    y = np.array([_f(s.get(name)) for s in specimens])
-    sd = np.array([_f(s.get(f"{name}_sd")) for s in specimens])
-    ok = np.isfinite(t) & np.isfinite(y)
+    t, y, sd, ok = _specimen_series(specimens, name)
     if not ok.any():
         return None
     fig = _figure(5.2, 3.4)

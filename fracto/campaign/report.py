@@ -22,6 +22,7 @@ import math
 from pathlib import Path
 from typing import Any
 
+from fracto.campaign.values import cell_float as _f
 from fracto.classes import MODES
 
 #: Thumbnails larger than this (bytes) are re-encoded as JPEG before embedding.
@@ -60,15 +61,6 @@ pre{font-size:.75em;background:#f6f6f6;padding:.5em;overflow-x:auto}
 
 def _e(x: Any) -> str:
     return html.escape("" if x is None else str(x), quote=True)
-
-
-def _f(v: Any) -> float:
-    if v is None or isinstance(v, bool):
-        return math.nan
-    try:
-        return float(v)
-    except (TypeError, ValueError):
-        return math.nan
 
 
 def _fmt(v: Any, spec: str = ".3g") -> str:

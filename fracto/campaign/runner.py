@@ -24,7 +24,6 @@ stay empty.
 from __future__ import annotations
 
 import io
-import math
 import os
 import tempfile
 import time
@@ -459,17 +458,6 @@ def run_tasks(
         yield from run_pool(tasks, spec, jobs=min(jobs, len(tasks)))
     else:
         yield from run_serial(tasks, spec)
-
-
-def finite_or_none(v) -> float | None:
-    """A float, or None for missing and non-finite values."""
-    if v is None:
-        return None
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return None
-    return f if math.isfinite(f) else None
 
 
 ProgressFn = Callable[[int, int, str], None]

@@ -33,6 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
+from fracto.campaign.values import cell_float_or_none as _num
 from fracto.io.safe import write_text_atomic
 
 #: First columns of images.csv, in order.
@@ -71,16 +72,6 @@ def unit_suffix(unit: str | None) -> str:
     if s.startswith("1_per_"):
         s = s[1:]
     return "_" + s.strip("_") if s else ""
-
-
-def _num(v) -> float | None:
-    if v is None or isinstance(v, bool):
-        return None
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return None
-    return f if math.isfinite(f) else None
 
 
 def _parse_number(text: str) -> float | None:

@@ -39,6 +39,7 @@ from typing import Any
 
 import numpy as np
 
+from fracto.campaign.values import cell_float as _num
 from fracto.classes import MODES
 from fracto.errors import FractoInputError
 
@@ -246,23 +247,6 @@ def _pinned(model: str, q: np.ndarray, scale: _Scale) -> bool:
 
 
 # ------------------------------------------------------------------ aggregation
-
-
-def _num(x: Any) -> float:
-    """Float value of a cell, NaN for None, empty or unparseable."""
-    if x is None:
-        return math.nan
-    if isinstance(x, bool):
-        return math.nan
-    if isinstance(x, int | float | np.floating | np.integer):
-        return float(x)
-    s = str(x).strip()
-    if not s:
-        return math.nan
-    try:
-        return float(s)
-    except ValueError:
-        return math.nan
 
 
 def _is_ok(row: dict) -> bool:

@@ -33,7 +33,13 @@ from fracto.synth.mode_model import ModeModel
 from fracto.synth.modes import FractureSettings
 from fracto.synth.polycrystal import GrainSize
 from fracto.synth.render import RenderSettings
-from fracto.synth.surface import GENERATOR_VERSION, _png_bytes, make_surface, write_height_tif
+from fracto.synth.surface import (
+    GENERATOR_VERSION,
+    _png_bytes,
+    make_surface,
+    prepare_output_folder,
+    write_height_tif,
+)
 
 __all__ = ["DEMO", "demo_settings", "make_campaign", "make_demo"]
 
@@ -111,14 +117,7 @@ def make_campaign(
         raise FractoInputError("Give at least one test temperature for the campaign.")
     if specimens_per_temperature < 1 or fields_per_specimen < 1:
         raise FractoInputError("A campaign needs at least one specimen and one field each.")
-    out = Path(outdir)
-    if out.exists() and not out.is_dir():
-        raise FractoInputError(f"The output path '{out}' exists and is not a folder.")
-    if out.is_dir() and any(out.iterdir()) and not force:
-        raise FractoInputError(
-            f"The output folder '{out}' is not empty; choose another or use --force."
-        )
-    out.mkdir(parents=True, exist_ok=True)
+    out = prepare_output_folder(outdir, force=force)
     mm = mode_model or ModeModel()
     root = np.random.SeedSequence(seed)
     n_spec = len(temps) * specimens_per_temperature

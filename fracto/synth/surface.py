@@ -97,6 +97,19 @@ def _png_bytes(img: np.ndarray) -> bytes:
     return buf.tobytes()
 
 
+def prepare_output_folder(outdir: str | os.PathLike, *, force: bool = False) -> Path:
+    """Create `outdir` for output; refuse a file, or a non-empty folder unless `force`."""
+    out = Path(outdir)
+    if out.exists() and not out.is_dir():
+        raise FractoInputError(f"The output path '{out}' exists and is not a folder.")
+    if out.is_dir() and any(out.iterdir()) and not force:
+        raise FractoInputError(
+            f"The output folder '{out}' is not empty; choose another or use --force."
+        )
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
 @dataclass(frozen=True)
 class SyntheticSurface:
     """A synthetic fracture surface with its true mode map.
@@ -141,14 +154,7 @@ class SyntheticSurface:
         list of Path
             The files written.
         """
-        out = Path(outdir)
-        if out.exists() and not out.is_dir():
-            raise FractoInputError(f"The output path '{out}' exists and is not a folder.")
-        if out.is_dir() and any(out.iterdir()) and not force:
-            raise FractoInputError(
-                f"The output folder '{out}' is not empty; choose another or use --force."
-            )
-        out.mkdir(parents=True, exist_ok=True)
+        out = prepare_output_folder(outdir, force=force)
         paths = [out / n for n in ("height.tif", "sem.png", "labels.png", "grains.tif")]
         write_height_tif(paths[0], self.height_um, self.pixel_size_um)
         bits = int(self.truth.get("render", {}).get("bit_depth", 8))
