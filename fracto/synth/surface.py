@@ -318,7 +318,7 @@ def make_surface(
     if not (0.25 * px <= gs.mean_um or gs.kind == "bimodal"):
         raise FractoInputError("The grains are smaller than the pixels; use a larger grain size.")
 
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(14)]
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(16)]
     d_nom = gs.nominal_um
     extent = (ny * px, nx * px)
 
@@ -513,11 +513,20 @@ def make_surface(
             if fs.crack_direction_deg is not None
             else float(streams[5].uniform(0, 2 * math.pi))
         )
-        ang = travel + np.radians(12.0) * rng.standard_normal(n_g)
-        ca, sa = np.cos(ang)[gs_], np.sin(ang)[gs_]
-        along = x[sel] * ca + y[sel] * sa
+        # striations are arcs concentric about a distant crack origin behind the
+        # field (the crack front's curvature): the phase is the distance from it,
+        # so the spacing along the local growth direction is exactly the nominal one
+        ca, sa = math.cos(travel), math.sin(travel)
+        r0 = 4.0 * math.hypot(*extent)
+        lateral = 0.05 * r0 * float(streams[12].uniform(-1.0, 1.0))
+        ox = 0.5 * extent[1] - r0 * ca - lateral * sa
+        oy = 0.5 * extent[0] - r0 * sa + lateral * ca
+        along = np.hypot(x[sel] - ox, y[sel] - oy)
+        # weak wobble: a tenth of a spacing, and a phase jump at each grain boundary
         wob = _smooth_noise((ny, nx), px, 1.5 * d_nom, streams[8]).ravel()[sel]
-        tilt = np.radians(4.0) * rng.standard_normal((n_g, 2))
+        jump = rng.uniform(size=n_g)[gs_]
+        # plateaus tilted by at most 1° per grain
+        tilt = np.radians(1.0) * rng.uniform(-1.0, 1.0, (n_g, 2)) / math.sqrt(2.0)
         plateau = np.tan(tilt[gs_, 0]) * (x[sel] - (cx[gs_] + 0.5) * px) + np.tan(tilt[gs_, 1]) * (
             y[sel] - (cy[gs_] + 0.5) * px
         )
@@ -526,7 +535,7 @@ def make_surface(
             + plateau
             + striations(
                 along,
-                0.8 * fs.striation_spacing_um * wob,
+                fs.striation_spacing_um * (0.1 * wob + jump),
                 fs.striation_spacing_um,
                 fs.striation_height_um,
             )
