@@ -283,6 +283,25 @@ def test_secant_cap_and_effects():
     assert im[32, 32] > 1.2 * im[32, 10]
 
 
+def test_scan_noise_rms_and_row_correlation():
+    # White noise smoothed by a Gaussian of σ pixels has a Gaussian autocorrelation of
+    # σ√2: neighbour correlation exp(-1 / (4 σ²)) along the rows, none across them
+    # (analytic); the multiplicative scan noise on a flat plane must show exactly that.
+    from dataclasses import replace
+
+    sig = 3.0
+    s = replace(RenderSettings.secant_only(yield_base=0.3), scan_noise=0.05, scan_noise_px=sig)
+    img = render_sem(np.zeros((256, 1024)), 0.1, s, seed=2).astype(np.float64)
+    rel = img / 0.3 - 1.0
+    assert float(np.std(rel)) == pytest.approx(0.05, rel=0.05)
+    along = float(np.corrcoef(rel[:, 1:].ravel(), rel[:, :-1].ravel())[0, 1])
+    across = float(np.corrcoef(rel[1:].ravel(), rel[:-1].ravel())[0, 1])
+    assert along == pytest.approx(math.exp(-1.0 / (4 * sig * sig)), abs=0.02)
+    assert abs(across) < 0.02
+    with pytest.raises(FractoInputError):
+        RenderSettings(scan_noise=-0.1)
+
+
 def test_render_random_settings_and_banner():
     rng = np.random.default_rng(3)
     h = make_surface(size=96, seed=1, render=RenderSettings.secant_only()).height_um

@@ -53,7 +53,7 @@ from fracto.synth.render import RenderSettings, banner_rows, render_sem
 __all__ = ["GENERATOR_VERSION", "SyntheticSurface", "make_surface", "write_height_tif"]
 
 #: Version of the generator's algorithms; changes when the same seed would give other images.
-GENERATOR_VERSION = "1"
+GENERATOR_VERSION = "2"
 
 
 def write_height_tif(path: str | os.PathLike, height_um: np.ndarray, pixel_size_um: float) -> None:
@@ -248,6 +248,16 @@ def _smooth_noise(
     )
 
 
+def _section_distance(gid: np.ndarray) -> np.ndarray:
+    """Distance (pixels) of every pixel to the outline of its grain section."""
+    edge = np.zeros(gid.shape, bool)
+    edge[:, 1:] |= gid[:, 1:] != gid[:, :-1]
+    edge[:, :-1] |= gid[:, 1:] != gid[:, :-1]
+    edge[1:] |= gid[1:] != gid[:-1]
+    edge[:-1] |= gid[1:] != gid[:-1]
+    return cv2.distanceTransform((~edge).astype(np.uint8), cv2.DIST_L2, 5).astype(np.float64)
+
+
 def make_surface(
     *,
     size: int | tuple[int, int] = 1024,
@@ -429,6 +439,14 @@ def make_surface(
             nb_all[act] = np.where(st[act], ft2, fb2)
             active = act
         h[pix] = zcur
+        # real boundary faces are not flat: each whole grain face set bends gently,
+        # a cap bulging out, a socket hollowed in (a dome over the grain section,
+        # zero at its outline, from the distance to the section boundary)
+        dist = _section_distance(gid)
+        dmax = np.asarray(ndimage.maximum(dist, gid, idx))
+        t = dist.ravel()[pix] / np.maximum(dmax[g[pix]], 1.0)
+        kappa = fs.boundary_curvature * rng.uniform(0.3, 1.7, n_g)
+        h[pix] += (sgn * kappa[g[pix]] * size_um[g[pix]]) * t * (2.0 - t)
 
     # transgranular cleavage
     sel = pmode == 1
@@ -495,7 +513,20 @@ def make_surface(
         kappa = fs.cleavage_curvature * rng.standard_normal((n_g, 2))[gs_]
         half = 0.5 * np.maximum(size_um[gs_], px)
         bend = kappa[:, 0] * (u / half) ** 2 + kappa[:, 1] * (v / half) ** 2
-        zz = plane + relief + bend * half
+        # faint conchoidal ripples: arcs about a point upstream of the entry edge
+        rip_on = (rng.uniform(size=n_g) < fs.ripple_fraction)[gs_]
+        rip_amp = fs.ripple_height * size_um[gs_] * rng.uniform(0.3, 1.0, n_g)[gs_]
+        rip_len = np.maximum(0.22 * size_um[gs_], 4.0 * px)
+        r_up = np.hypot(u - umin + half, v)
+        ripple = np.where(rip_on, rip_amp * np.sin(2 * math.pi * r_up / rip_len + 2.0 * wob), 0)
+        # chipped terraces: a staircase of small steps cutting off a side of the facet
+        chip_on = (rng.uniform(size=n_g) < fs.terrace_fraction)[gs_]
+        beta = rng.uniform(0, 2 * math.pi, n_g)
+        w = (du * np.cos(beta)[gs_] + dv * np.sin(beta)[gs_]) / half
+        w0 = rng.uniform(0.2, 0.7, n_g)[gs_]
+        n_steps = np.floor(np.maximum(w - w0 + 0.15 * streak, 0.0) / 0.18) * chip_on
+        terrace = -n_steps * (0.03 * size_um[gs_]) * rng.uniform(0.5, 1.5, n_g)[gs_]
+        zz = plane + relief + bend * half + ripple + terrace
         h[sel] = np.clip(zz, z_bot[sel] + 0.01 * px, z_top[sel] - 0.01 * px)
 
     # ductile
