@@ -119,6 +119,12 @@ class FractureSettings:
         Number density of small loose fragments lying on the surface.
     debris_um : float
         Mean diameter of the fragments.
+    fragment_clusters : float
+        Clusters of small flakes per grain-section area (d²) of the field.
+    fragments_per_cluster : float
+        Mean number of flakes in a cluster.
+    fragment_um : float or None
+        Median diameter of a flake in a cluster (default 0.06 × grain size).
     edge_rounding_um : float
         σ of a Gaussian smoothing of the final map: edges and steps are
         rounded over about this length, as real ones are (0 = sharp).
@@ -150,6 +156,9 @@ class FractureSettings:
     edge_rounding_um: float = 0.1
     debris_per_um2: float = 0.003
     debris_um: float = 0.25
+    fragment_clusters: float = 0.12
+    fragments_per_cluster: float = 60.0
+    fragment_um: float | None = None
 
     def __post_init__(self) -> None:
         if self.cleavage_family not in CLEAVAGE_FAMILIES:

@@ -33,6 +33,7 @@ from fracto.classes import CLASSES, MODES
 from fracto.errors import FractoInputError
 from fracto.io.safe import write_bytes_atomic, write_json_atomic
 from fracto.synth.fields import gaussian_correlated_field
+from fracto.synth.fragments import fragment_sites, place_fragments
 from fracto.synth.mode_model import ModeModel
 from fracto.synth.modes import (
     FractureSettings,
@@ -598,28 +599,21 @@ def make_surface(
             depth = 0.35 * d_nom
             height = np.where(opened, height - depth, height)
 
-    if fs.debris_per_um2 > 0:
-        # loose fragments: small faceted bumps (half-octahedra) at random sites
+    if fs.debris_per_um2 > 0 or fs.fragment_clusters > 0:
+        # loose fragments: isolated debris and clusters of small flakes
         drng = streams[10]
-        nd = int(drng.poisson(fs.debris_per_um2 * extent[0] * extent[1]))
-        if nd:
-            r_um = 0.5 * fs.debris_um * np.exp(0.4 * drng.standard_normal(nd))
-            cy_d = drng.uniform(0, ny, nd)
-            cx_d = drng.uniform(0, nx, nd)
-            for k in range(nd):
-                rp = r_um[k] / px
-                i0, i1 = int(max(cy_d[k] - rp - 1, 0)), int(min(cy_d[k] + rp + 2, ny))
-                j0, j1 = int(max(cx_d[k] - rp - 1, 0)), int(min(cx_d[k] + rp + 2, nx))
-                if i1 <= i0 or j1 <= j0:
-                    continue
-                sub_y, sub_x = np.mgrid[i0:i1, j0:j1]
-                dist1 = np.abs(sub_y + 0.5 - cy_d[k]) + np.abs(sub_x + 0.5 - cx_d[k])
-                bump = np.maximum(rp - dist1, 0.0) * px * 1.2
-                base = height[i0:i1, j0:j1]
-                top = base.max() if bump.max() > 0 else 0.0
-                height[i0:i1, j0:j1] = np.where(
-                    bump > 0, np.maximum(base, top + bump - bump.max() * 0.3), base
-                )
+        frag_um = fs.fragment_um if fs.fragment_um is not None else 0.12 * d_nom
+        sites, radii = fragment_sites(
+            (ny, nx),
+            drng,
+            n_single=fs.debris_per_um2 * extent[0] * extent[1],
+            n_clusters=fs.fragment_clusters * extent[0] * extent[1] / d_nom**2,
+            per_cluster=fs.fragments_per_cluster,
+            single_radius_px=0.5 * fs.debris_um / px,
+            cluster_radius_px=0.6 * d_nom / px,
+            fragment_radius_px=0.5 * frag_um / px,
+        )
+        height = place_fragments(height, px, sites, radii, drng)
 
     if fs.edge_rounding_um > 0:
         # at least one pixel, so steps along oblique boundaries do not alias into dots
