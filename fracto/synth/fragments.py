@@ -31,8 +31,8 @@ def fragment_sites(
     single_radius_px: float,
     cluster_radius_px: float,
     fragment_radius_px: float,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Centres (row, column) and radii (pixels) of the fragments of one field.
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centres (row, column), radii (pixels) and cluster flags of the fragments of a field.
 
     Parameters
     ----------
@@ -64,9 +64,10 @@ def fragment_sites(
     r_cl = fragment_radius_px * np.exp(0.5 * rng.standard_normal(owner.size))
     pts = np.concatenate([c_single, pos])
     rad = np.concatenate([r_single, r_cl])
-    keep = (pts[:, 0] > -rad) & (pts[:, 0] < ny + rad) & (pts[:, 1] > -rad) & (pts[:, 1] < nx + rad)
-    keep &= rad >= 0.75
-    return pts[keep], rad[keep]
+    clustered = np.r_[np.zeros(ns, bool), np.ones(owner.size, bool)]
+    keep = (pts[:, 0] > -rad) & (pts[:, 0] < ny + rad)
+    keep &= (pts[:, 1] > -rad) & (pts[:, 1] < nx + rad) & (rad >= 0.75)
+    return pts[keep], rad[keep], clustered[keep]
 
 
 def place_fragments(

@@ -603,7 +603,7 @@ def make_surface(
         # loose fragments: isolated debris and clusters of small flakes
         drng = streams[10]
         frag_um = fs.fragment_um if fs.fragment_um is not None else 0.12 * d_nom
-        sites, radii = fragment_sites(
+        sites, radii, clustered = fragment_sites(
             (ny, nx),
             drng,
             n_single=fs.debris_per_um2 * extent[0] * extent[1],
@@ -613,7 +613,12 @@ def make_surface(
             cluster_radius_px=0.6 * d_nom / px,
             fragment_radius_px=0.5 * frag_um / px,
         )
-        height = place_fragments(height, px, sites, radii, drng)
+        # clusters of flakes come from brittle fracture: only on intergranular and
+        # cleavage grains (isolated debris lies anywhere)
+        si = np.clip(sites[:, 0].astype(int), 0, ny - 1)
+        sj = np.clip(sites[:, 1].astype(int), 0, nx - 1)
+        keep = ~clustered | (labels[si, sj] <= 2)
+        height = place_fragments(height, px, sites[keep], radii[keep], drng)
 
     if fs.edge_rounding_um > 0:
         # at least one pixel, so steps along oblique boundaries do not alias into dots
