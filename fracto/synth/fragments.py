@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 
+import cv2
 import numpy as np
 from scipy.spatial import cKDTree
 
@@ -128,13 +129,16 @@ def place_fragments(
     top = base + thickness * radii_px * px
     # pixels near any fragment
     rmax = float(radii_px.max())
-    mask = np.zeros((ny, nx), bool)
-    for c, r in zip(np.round(centres).astype(int), np.ceil(radii_px).astype(int), strict=True):
-        i0, i1 = max(c[0] - r - 1, 0), min(c[0] + r + 2, ny)
-        j0, j1 = max(c[1] - r - 1, 0), min(c[1] + r + 2, nx)
-        if i1 > i0 and j1 > j0:
-            mask[i0:i1, j0:j1] = True
-    ii, jj = np.nonzero(mask)
+    # mark the centres, grown by the largest radius (a superset of every flake)
+    seeds = np.zeros((ny, nx), np.uint8)
+    ok = (centres[:, 0] >= 0) & (centres[:, 0] < ny) & (centres[:, 1] >= 0) & (centres[:, 1] < nx)
+    seeds[centres[ok, 0].astype(int), centres[ok, 1].astype(int)] = 1
+    rk = math.ceil(rmax) + 1
+    grown = cv2.dilate(seeds, np.ones((2 * rk + 1, 2 * rk + 1), np.uint8))
+    # flakes centred just outside the map reach into it: include a border band
+    grown[:rk] = grown[-rk:] = 1
+    grown[:, :rk] = grown[:, -rk:] = 1
+    ii, jj = np.nonzero(grown)
     if ii.size == 0:
         return out
     q = np.c_[ii + 0.5, jj + 0.5]
