@@ -507,3 +507,31 @@ def test_demo_regenerates_byte_identical(tmp_path):
         if p.suffix in (".png", ".tif"):
             rel = p.relative_to(tmp_path / "d")
             assert p.read_bytes() == (DEMO_DIR / rel).read_bytes(), rel
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3])
+def test_fragment_flake_area_is_superellipse_area(seed):
+    # Analytic: the superellipse |a/r|^p + |b/(r/e)|^p <= 1 has area
+    # 4 r (r/e) Γ(1 + 1/p)² / Γ(1 + 2/p) (p = 2: the ellipse π r²/e). An untilted
+    # flake on a flat map raises exactly the pixels inside it (to 2 % at r = 40 px).
+    from fracto.synth.fragments import place_fragments
+
+    r = 40.0
+    flat = np.zeros((128, 128))
+    out = place_fragments(
+        flat,
+        0.1,
+        np.array([[64.0, 64.0]]),
+        np.array([r]),
+        np.random.default_rng(seed),
+        max_tilt_deg=0.0,
+    )
+    rng = np.random.default_rng(seed)  # the same draws: orientation, exponent, aspect ratio
+    rng.uniform(0, math.pi, 1)
+    p = float(rng.uniform(1.0, 3.0, 1)[0])
+    e = float(rng.uniform(1.0, 2.0, 1)[0])
+    area = 4 * r * (r / e) * math.gamma(1 + 1 / p) ** 2 / math.gamma(1 + 2 / p)
+    raised = np.count_nonzero(out > 0)
+    assert raised == pytest.approx(area, rel=0.02)
+    assert np.allclose(out[out > 0], 0.5 * r * 0.1)  # thickness 0.5 r, flat on a flat base
+    np.testing.assert_array_equal(flat, 0.0)  # input unchanged
