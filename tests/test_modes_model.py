@@ -53,10 +53,16 @@ def test_pure_single_mode_field_is_that_mode(mode):
 
 def test_threshold_sends_unsure_regions_to_unclassified():
     img, _ = mixed_field(256, 30, seed=102)
-    hi = classify_image(img, small_model(), threshold=0.999, n_boot=50).fractions.to_dict()
-    lo = classify_image(img, small_model(), threshold=0.0, n_boot=50).fractions.to_dict()
+    r_hi = classify_image(img, small_model(), threshold=0.999, n_boot=50)
+    r_lo = classify_image(img, small_model(), threshold=0.0, n_boot=50)
+    hi, lo = r_hi.fractions_uncorrected.to_dict(), r_lo.fractions_uncorrected.to_dict()
     assert lo[UNCLASSIFIED]["value"] == 0.0
     assert hi[UNCLASSIFIED]["value"] > lo[UNCLASSIFIED]["value"]
+    # the corrected fractions use every region's best class: no unclassified share,
+    # and the threshold does not move them
+    assert r_hi.fractions.to_dict()[UNCLASSIFIED]["value"] == 0.0
+    np.testing.assert_allclose(r_hi.fractions.value, r_lo.fractions.value)
+    assert r_hi.correction["unclassified_uncorrected"] == hi[UNCLASSIFIED]["value"]
     with pytest.raises(FractoInputError):
         classify_image(img, small_model(), threshold=1.5)
 
