@@ -736,6 +736,11 @@ def write_model_card(
         "cross_validation": scores or {},
         "held_out_area_confusion": model.cv_summary() if hasattr(model, "cv_summary") else {},
         "feature_importance": importance or {},
+        "held_out_permutation_importance": {
+            "method": "drop of held-out region accuracy when a feature is permuted, on the "
+            "grouped calibration folds (Breiman 2001; sklearn.inspection)",
+            "top": model_importance(model),
+        },
         "created_utc": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "library_versions": library_versions(),
         "seed": seed,
