@@ -91,10 +91,20 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
     hi = {c: np.zeros((n_fields, k)) for c in kinds}
     truth = np.zeros((n_fields, k))
     t0 = time.perf_counter()
+    from fracto.errors import FractoInputError
+
+    skipped = []
+    j = -1
     for i in range(n_fields):
-        img, lab, _ = bench_field(i)
+        while True:  # fields too coarse to classify (too few regions) are skipped
+            j += 1
+            img, lab, _ = bench_field(j)
+            try:
+                f = region_features(img, scale_um=model.scale_um)
+                break
+            except FractoInputError:
+                skipped.append(SEED_BASE + j)
         truth[i] = [(lab == MODES.index(c) + 1).mean() for c in classes]
-        f = region_features(img, scale_um=model.scale_um)
         pb = tiles_to_blocks(model.predict_proba(f.X), f.tile_grid)
         w = f.block_weights()
         counted = block_bootstrap_fractions(
@@ -135,11 +145,20 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
             }
             for j, m in enumerate(classes)
         }
-    return {"n_fields": n_fields, "n_boot": n_boot, "results": out, "seconds": None}
+    return {
+        "n_fields": n_fields,
+        "n_boot": n_boot,
+        "skipped_seeds": skipped,
+        "results": out,
+        "seconds": None,
+    }
 
 
 def format_results(d: dict) -> str:
-    lines = [f"{d['n_fields']} unseen fields, {d['n_boot']} replicates, target coverage 0.90-0.98"]
+    lines = [
+        f"{d['n_fields']} unseen fields ({len(d['skipped_seeds'])} too coarse to classify "
+        f"skipped), {d['n_boot']} replicates, target coverage 0.90-0.98"
+    ]
     lines.append(f"{'interval':<18}{'mode':<15}{'coverage':>9}{'width':>8}{'bias':>8}{'rmse':>7}")
     for kind, per in d["results"].items():
         for m, v in per.items():

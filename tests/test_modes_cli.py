@@ -266,3 +266,24 @@ def test_overlay_opacity_follows_confidence():
     # the 400 px image fills the left of the figure below a 40 px title band
     sure, unsure = a[240, 100], a[240, 300]
     assert np.ptp(sure) > np.ptp(unsure) + 20
+
+
+def test_train_card_holds_the_held_out_contract(tmp_path, capsys):
+    rows = []
+    for s in range(3):
+        img, lab = mixed_field(160, 24, seed=410 + s, modes=(1, 3))
+        ip = _png(tmp_path / f"im{s}.png", img)
+        mp = tmp_path / f"mask{s}.png"
+        Image.fromarray(lab.astype(np.uint8)).save(mp)
+        rows.append(f"{ip},{mp}")
+    lst = tmp_path / "list.csv"
+    lst.write_text("\n".join(rows) + "\n")
+    out = tmp_path / "m.skops"
+    args = ["train", "--masks", str(lst), "--out", str(out), "--cv", "3", "--max-iter", "10"]
+    assert main(args) == 0
+    assert "held-out area accuracy" in capsys.readouterr().out
+    card = json.loads((tmp_path / "m.card.json").read_text())
+    area = card["held_out_area_confusion"]
+    cm = np.array(area["area_confusion"])
+    assert cm.shape == (2, 2) and area["labels"] == ["intergranular", "ductile"]
+    assert card["held_out_permutation_importance"]["top"]

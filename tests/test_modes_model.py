@@ -214,3 +214,14 @@ def test_sigmoid_and_two_class_models():
     assert m.confusion_.shape == (2, 2)
     none = ModeClassifier(MODES, max_iter=10, calibration="none").fit(ts.X, ts.y, ts.groups)
     assert none.confusion_ is None and none.predict_proba(ts.X[:5]).shape == (5, 4)
+
+
+def test_calibration_ensemble_members_average_to_the_model():
+    # Code walking the ensemble (estimator_.calibrated_classifiers_) sees the calibrated
+    # boosters; their mean is the model's probability.
+    m = small_model()
+    X = small_training_set().X[:25]
+    members = m.member_proba(X)
+    assert members.shape == (m.n_cv_folds_, 25, 4)
+    np.testing.assert_allclose(members.mean(axis=0), m.predict_proba(X), atol=1e-12)
+    assert list(m.estimator_.classes_) == list(m.classes_)

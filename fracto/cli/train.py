@@ -73,4 +73,10 @@ def command(
         click.echo(dumps_json(card))
     else:
         click.echo(format_scores(scores))
+        area = card.get("held_out_area_confusion") or {}
+        if area.get("area_accuracy") is not None:
+            click.echo(
+                f"held-out area accuracy (calibrated model, {area['scheme']}): "
+                f"{area['area_accuracy']:.3f}"
+            )
         click.echo(f"model written to {out} (card {card['card_path']})")

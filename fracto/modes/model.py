@@ -412,6 +412,30 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
             "n_images_scored": len(self.confusion_groups_ or []),
         }
 
+    @property
+    def estimator_(self):
+        """The calibration ensemble (``calibrated_classifiers_``, ``classes_``).
+
+        Models written before the held-out contract hold a
+        ``CalibratedClassifierCV`` here; newer ones expose their calibrated
+        boosters through the same two attributes.
+        """
+        d = self.__dict__
+        if "estimator_" in d:
+            return d["estimator_"]
+        if "boosters_" not in d:
+            raise AttributeError("estimator_")
+        return _Ensemble(self)
+
+    def member_proba(self, X: np.ndarray) -> np.ndarray:
+        """Probabilities of each calibrated booster, shape (n_members, n, n_classes)."""
+        X = np.asarray(X, dtype=np.float32)
+        members = getattr(self.estimator_, "calibrated_classifiers_", None)
+        if not members:
+            return self.predict_proba(X)[None]
+        order = [list(self.estimator_.classes_).index(c) for c in self.classes_]
+        return np.stack([m.predict_proba(X)[:, order] for m in members])
+
     def predict_proba(self, X: np.ndarray) -> np.ndarray:
         """Calibrated probabilities, columns in the order of ``classes_``."""
         from threadpoolctl import threadpool_limits
@@ -444,6 +468,38 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
     def predict_best(self, X: np.ndarray) -> np.ndarray:
         """Most probable class, with no threshold (for scores)."""
         return self.classes_[self.predict_proba(X).argmax(axis=1)]
+
+
+class _Member:
+    """One calibrated booster of a model (for code that walks the ensemble)."""
+
+    def __init__(self, booster, calibrators, classes):
+        self.estimator = booster
+        self.calibrators = calibrators
+        self.classes = classes
+
+    def predict_proba(self, X):
+        if self.calibrators is None:
+            order = [list(self.estimator.classes_).index(c) for c in self.classes]
+            return self.estimator.predict_proba(X)[:, order]
+        return _calibrated(
+            self.estimator, self.calibrators, np.asarray(X, np.float32), self.classes
+        )
+
+
+class _Ensemble:
+    """Read-only view of a model's boosters as ``calibrated_classifiers_``."""
+
+    def __init__(self, model):
+        self._model = model
+        self.classes_ = model.classes_
+        cal = model.calibrators_
+        self.calibrated_classifiers_ = (
+            [_Member(b, cal, model.classes_) for b in model.boosters_] if cal is not None else []
+        )
+
+    def predict_proba(self, X):
+        return self._model.predict_proba(X)
 
 
 class _NoFit:
@@ -680,6 +736,11 @@ def write_model_card(
         "cross_validation": scores or {},
         "held_out_area_confusion": model.cv_summary() if hasattr(model, "cv_summary") else {},
         "feature_importance": importance or {},
+        "held_out_permutation_importance": {
+            "method": "drop of held-out region accuracy when a feature is permuted, on the "
+            "grouped calibration folds (Breiman 2001; sklearn.inspection)",
+            "top": model_importance(model),
+        },
         "created_utc": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "library_versions": library_versions(),
         "seed": seed,
