@@ -318,10 +318,21 @@ def _score_sem(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
         "banner": {k: v for k, v in sem.banner.items() if k in ("rows", "side", "method")},
         "threshold": res.threshold,
     }
+    out["striation"] = _striation(img, res, px, int(st.get("seed", 0)))
     thumb = thumbnail_jpeg(
         img, res.label_map, res.classes, max_side_px=int(st.get("thumbnail_px", THUMBNAIL_PX))
     )
     return out, thumb
+
+
+def _striation(img: np.ndarray, res, px: float | None, seed: int) -> dict | None:
+    """Striation spacing in the regions classified as fatigue (None: no fatigue windows)."""
+    from fracto.modes.striation import striations_from_mode_result
+
+    if min(img.shape) < 16:
+        return None
+    sr = striations_from_mode_result(img, res, px, seed=seed)
+    return sr.to_dict() if sr is not None else None
 
 
 def _score_height(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
