@@ -14,7 +14,14 @@ Printed per configuration: wall time of the whole call, throughput (images/s)
 over the whole call, and the steady throughput between the first and last
 finished image (worker start-up and model loading excluded); then the ratios.
 
-Run: ``/root/venv/bin/python bench/bench_batch.py [--base 4] [--model PATH] [--keep DIR]``
+Then the CPU time of one image's work, in this process under one thread
+(``time.process_time``, much less sensitive to other load on the machine than the
+wall times): the whole :func:`fracto.campaign.runner.score_task` over ``--profile``
+images, and its stages (reading, quality, region features, prediction, bootstrap and
+painting, striations, thumbnail) timed one by one on the same images.
+
+Run: ``/root/venv/bin/python bench/bench_batch.py [--base 4] [--model PATH] [--keep DIR]
+[--profile 3] [--only-profile]``
 The machine is shared with other work: the load average is printed beside the figures.
 """
 
@@ -91,12 +98,95 @@ def run(label: str, folder: Path, model: str, **kw) -> dict:
     return r
 
 
+def profile_stages(files: list[Path], model_path: str) -> None:
+    """CPU seconds per image of score_task and of its stages (one thread, this process)."""
+    from fracto.campaign.runner import (
+        ModelSpec,
+        ScoreTask,
+        _striation,
+        one_thread,
+        remember_model,
+        score_task,
+        thumbnail_jpeg,
+    )
+    from fracto.io import read_sem_image
+    from fracto.modes.features import region_features
+    from fracto.modes.fractions import block_bootstrap_fractions, memberships_from_labels
+    from fracto.modes.model import load_model, sha256_of
+    from fracto.modes.quality import assess_quality
+    from fracto.modes.regions import block_labels, paint, tiles_to_blocks
+
+    c0 = time.process_time()
+    model = load_model(model_path)
+    print(f"model load: {time.process_time() - c0:.2f} s CPU (once per worker)")
+    spec = ModelSpec(sha256=sha256_of(model_path), path=model_path)
+    remember_model(spec, model)
+    st = {"seed": 0, "n_boot": 1000, "threshold": None, "banner": "auto", "thumbnail_px": 512}
+    stages: dict[str, float] = {}
+
+    def tick(name: str, c: float) -> float:
+        now = time.process_time()
+        stages[name] = stages.get(name, 0.0) + now - c
+        return now
+
+    with one_thread():
+        score_task(ScoreTask("w", "sem", files[0].name, str(files[0]), settings=st), spec)
+        c0 = time.process_time()
+        for f in files:
+            r = score_task(ScoreTask("k", "sem", f.name, str(f), settings=st), spec)
+            assert r["status"] == "ok", r["error"]
+        whole = (time.process_time() - c0) / len(files)
+        for f in files:
+            c = time.process_time()
+            sem = read_sem_image(f)
+            img = np.asarray(sem.image, dtype=np.float32)
+            c = tick("read", c)
+            assess_quality(img)
+            c = tick("quality", c)
+            feats = region_features(img, pixel_size_um=None, scale_um=model.scale_um)
+            c = tick("features", c)
+            p = model.predict_proba(feats.X)
+            c = tick("predict", c)
+            lab = block_labels(tiles_to_blocks(p, feats.tile_grid), model.threshold)
+            classes = tuple(str(k) for k in model.classes_)
+            block_bootstrap_fractions(
+                memberships_from_labels(lab, len(classes)),
+                feats.block_weights(),
+                (*classes, "unclassified"),
+                n_boot=1000,
+                seed=0,
+            )
+            label_map = paint((lab + 1).astype(np.uint8), feats.block_px, img.shape)
+            c = tick("bootstrap+paint", c)
+
+            class _R:  # what striations_from_mode_result reads
+                pass
+
+            res = _R()
+            res.classes, res.label_map = classes, label_map
+            _striation(img, res, None, 0)
+            c = tick("striation", c)
+            thumbnail_jpeg(img, label_map, classes)
+            c = tick("thumbnail", c)
+    tot = sum(stages.values()) / len(files)
+    print(
+        f"CPU per image (score_task, one thread, {len(files)} images): {whole:.2f} s "
+        f"-> at most {1 / whole:.2f} images/s per core, {2 / whole:.2f} on 2 cores"
+    )
+    print("  stages (timed separately; CPU s per image, share of their sum):")
+    for k, v in stages.items():
+        v /= len(files)
+        print(f"    {k:<16} {v:6.3f} s  {v / tot:5.1%}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--base", type=int, default=4, help="base images (4 files each)")
     ap.add_argument("--model", help="model file (default: fracto's default model)")
     ap.add_argument("--keep", help="folder to keep the generated images in (reused)")
     ap.add_argument("--no-dask", action="store_true")
+    ap.add_argument("--profile", type=int, default=3, help="images in the CPU profile")
+    ap.add_argument("--only-profile", action="store_true")
     a = ap.parse_args()
     from fracto.modes.model import default_model_path
 
@@ -114,6 +204,11 @@ def main() -> None:
     make_images(folder, a.base)
     files = sorted(folder.glob("*.png"))  # a reused --keep folder may hold more
     print(f"{len(files)} SEM images of 1024 x 1024 px in {folder}; model {model}")
+    if a.profile > 0:
+        profile_stages(files[: a.profile], model)
+        print()
+    if a.only_profile:
+        return
     res = {}
     res["jobs1"] = run("local --jobs 1", folder, model, jobs=1)
     res["jobs2"] = run("local --jobs 2", folder, model, jobs=2)

@@ -385,7 +385,12 @@ def test_unreachable_scheduler_is_one_sentence(tmp_path, campaign, model_file, c
 
 
 def test_ctrl_c_with_two_jobs_stops_cleanly_and_resumes(tmp_path, model_file, capsys):
-    camp = make_small_campaign(tmp_path / "camp", n_sem=12)
+    # Deterministic: once the first result is stored, this test holds the database's
+    # write lock, so the batch cannot store (and so cannot finish) before the Ctrl-C
+    # arrives; the lock is let go after the signal and the batch stops by itself.
+    n_sem = 16
+    total = n_sem + 1
+    camp = make_small_campaign(tmp_path / "camp", n_sem=n_sem)
     out = tmp_path / "out"
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
     cmd = [
@@ -410,24 +415,44 @@ def test_ctrl_c_with_two_jobs_stops_cleanly_and_resumes(tmp_path, model_file, ca
     )
     db = out / "results.sqlite"
     deadline = time.time() + 120
-    while time.time() < deadline and proc.poll() is None:
-        if db.is_file():
-            try:
-                with sqlite3.connect(db, timeout=1) as c:
-                    if c.execute("SELECT COUNT(*) FROM results").fetchone()[0] >= 2:
+    lock = None
+    try:
+        while time.time() < deadline and proc.poll() is None:
+            if db.is_file():
+                try:
+                    c = sqlite3.connect(db, timeout=1, isolation_level=None)
+                    c.execute("BEGIN IMMEDIATE")  # the write lock: no result stored from now
+                    n_at_lock = c.execute("SELECT COUNT(*) FROM results").fetchone()[0]
+                    if n_at_lock >= 1:
+                        lock = c
                         break
-            except sqlite3.OperationalError:
-                pass
-        time.sleep(0.05)
-    assert proc.poll() is None, "the batch ended before it could be interrupted"
-    proc.send_signal(signal.SIGINT)
+                    c.execute("ROLLBACK")
+                    c.close()
+                except sqlite3.OperationalError:
+                    pass
+            time.sleep(0.02)
+        assert lock is not None, "no result was stored in time"
+        assert n_at_lock < total, "the batch stored every result before the lock was taken"
+        assert proc.poll() is None, "the batch ended with results still to store"
+        proc.send_signal(signal.SIGINT)
+        time.sleep(0.5)
+    finally:
+        if lock is not None:
+            lock.execute("ROLLBACK")
+            lock.close()
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, err
     assert "run the same command again to resume" in err and "Traceback" not in err
+    with sqlite3.connect(db) as c:
+        assert c.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        n_stopped = c.execute("SELECT COUNT(*) FROM results").fetchone()[0]
+    # at most the one result whose store was waiting on the lock was added after it
+    assert n_at_lock <= n_stopped <= n_at_lock + 1 < total + 1
     rc, o = _batch([str(camp), "--out", str(out), "--model", model_file, "--no-report"], capsys)
-    assert rc == 0 and "0 failed" in o.out
+    assert rc == 0
+    assert f"{total - n_stopped} scored, 0 failed, {n_stopped} skipped (already done)" in o.out
     rows = read_csv(out / "images.csv")
-    assert len(rows) == 13 and all(r["status"] == "ok" for r in rows)
+    assert len(rows) == total and all(r["status"] == "ok" for r in rows)
     with sqlite3.connect(db) as c:
         keys = [k for (k,) in c.execute("SELECT key FROM results")]
-    assert len(keys) == len(set(keys)) == 13
+    assert len(keys) == len(set(keys)) == total

@@ -402,3 +402,44 @@ def test_intervals_of_a_mode_do_not_depend_on_other_columns():
         == (b["fits"]["ductile"]["midpoint_temperature_ci95_C"])
     )
     assert "toughness_J" in b["fits"]
+
+
+def test_field_intervals_widen_the_interval_and_vanish_without_bounds():
+    # Each field's fraction carries its own 95 % interval (half-width 0.15, as a field
+    # with few regions has): drawing within it must widen the transition interval over
+    # the specimens-only bootstrap. Without interval columns nothing is drawn, so the
+    # result is exactly the specimens-only one (same seed, same stream).
+    rows = _campaign(specimen_sd=0.02, field_sd=0.01, seed=11)
+    plain = analyse_campaign(rows, transition_temperature_C=None, n_boot=150, seed=5)
+    off = analyse_campaign(
+        rows, transition_temperature_C=None, n_boot=150, seed=5, field_intervals=False
+    )
+    assert plain["fits"]["ductile"] == off["fits"]["ductile"]
+    wide = [
+        dict(
+            r,
+            ductile_ci95_low=max(0.0, r["ductile_fraction"] - 0.15),
+            ductile_ci95_high=min(1.0, r["ductile_fraction"] + 0.15),
+        )
+        for r in rows
+    ]
+    doc = analyse_campaign(wide, transition_temperature_C=None, n_boot=150, seed=5)
+    fit = doc["fits"]["ductile"]
+    assert "within its own interval" in fit["bootstrap"]["method"]
+    assert fit["midpoint_temperature_C"] == off["fits"]["ductile"]["midpoint_temperature_C"]
+    assert _width(doc) > 1.3 * _width(off)
+
+
+def test_field_uncertainty_sigma_from_the_interval():
+    from fracto.campaign.transition import Z95, field_uncertainty
+
+    rows = [
+        {"ductile_fraction": 0.5, "ductile_ci95_low": 0.4, "ductile_ci95_high": 0.6},
+        {"ductile_fraction": 0.2, "ductile_ci95_low": None, "ductile_ci95_high": None},
+        {"ductile_fraction": None},
+    ]
+    v, sd = field_uncertainty(rows, "ductile_fraction")
+    # a normal's central 95 % spans ±1.959964 σ (any statistics table)
+    np.testing.assert_allclose(v, [0.5, 0.2])
+    np.testing.assert_allclose(sd, [0.2 / (2 * 1.959964), 0.0], rtol=1e-6)
+    assert Z95 == pytest.approx(1.959964, abs=1e-6)

@@ -144,7 +144,13 @@ def run_batch(
     from fracto import __version__
     from fracto.campaign import summary as sm
     from fracto.campaign.manifest import duplicate_paths, load_campaign
-    from fracto.campaign.runner import ModelSpec, ScoreTask, fraction_names, run_tasks
+    from fracto.campaign.runner import (
+        ModelSpec,
+        Scorer,
+        ScoreTask,
+        fraction_names,
+        remember_model,
+    )
     from fracto.campaign.store import DB_NAME, ResultStore, result_key, settings_hash
     from fracto.io.safe import write_bytes_atomic, write_json_atomic
     from fracto.io.sidecar import find_sidecar
@@ -156,11 +162,11 @@ def run_batch(
     out = Path(out_dir)
     manifest = load_campaign(source, exclude=out)
     mpath = Path(model_path) if model_path is not None else default_model_path()
-    model = load_model(mpath, trust=trust)
+    if not mpath.is_file():
+        load_model(mpath, trust=trust)  # its one sentence for a missing file
     check_output_folder(out)
     (out / OVERLAY_DIR).mkdir(exist_ok=True)
     msha = sha256_of(mpath)
-    names = fraction_names(model)
     settings = default_settings(seed=seed, n_boot=n_boot, threshold=threshold, model_sha256=msha)
     global_hash = settings_hash(settings)
     manifest_id = hashlib.sha256(str(manifest.source.resolve()).encode()).hexdigest()
@@ -226,27 +232,36 @@ def run_batch(
         spec = ModelSpec(sha256=msha, path=str(mpath), trust=trust)
         n_done = 0
         new_ok: set[str] = set()
-        for res in run_tasks(tasks, spec, jobs=jobs, scheduler=scheduler, client=client):
-            t = meta[res["key"]]
-            if res["thumbnail"] is not None:
-                write_bytes_atomic(out / OVERLAY_DIR / f"{t.key[:24]}.jpg", res["thumbnail"])
-            d0 = by_key[t.key]
-            store.put_result(
-                t.key,
-                content_sha256=d0["content_sha256"],
-                settings_hash=d0["item_hash"],
-                tool_version=__version__,
-                kind=t.kind,
-                status=res["status"],
-                error=res["error"],
-                result=res["result"],
-                seconds=res["seconds"],
-            )
-            if res["status"] == "ok":
-                new_ok.add(t.key)
-            n_done += 1
-            if progress is not None:
-                progress(n_done, len(tasks), t.name)
+        scorer = Scorer(spec, jobs=min(jobs, len(tasks)) or 1, scheduler=scheduler, client=client)
+        try:
+            if tasks:
+                scorer.start()  # workers start and load the model while this process does too
+            model = load_model(mpath, trust=trust)
+            remember_model(spec, model)  # jobs=1 scores with this very object
+            names = fraction_names(model)
+            for res in scorer.run(tasks):
+                t = meta[res["key"]]
+                if res["thumbnail"] is not None:
+                    write_bytes_atomic(out / OVERLAY_DIR / f"{t.key[:24]}.jpg", res["thumbnail"])
+                d0 = by_key[t.key]
+                store.put_result(
+                    t.key,
+                    content_sha256=d0["content_sha256"],
+                    settings_hash=d0["item_hash"],
+                    tool_version=__version__,
+                    kind=t.kind,
+                    status=res["status"],
+                    error=res["error"],
+                    result=res["result"],
+                    seconds=res["seconds"],
+                )
+                if res["status"] == "ok":
+                    new_ok.add(t.key)
+                n_done += 1
+                if progress is not None:
+                    progress(n_done, len(tasks), t.name)
+        finally:
+            scorer.close()
         stored = store.get_results(keys)
     finally:
         store.close()

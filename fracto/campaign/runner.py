@@ -14,6 +14,17 @@ files: the file bytes travel with each task and the model bytes are scattered
 to every worker once. At most a few tasks per worker are in flight, so memory
 stays bounded on long campaigns.
 
+:class:`Scorer` holds the executor. It is started before the caller's own
+set-up work (hashing the files, loading the model for the summaries), so the
+worker processes start and load the model meanwhile; on a cluster one
+warm-up task per worker loads the model before the first image arrives.
+
+Threads: one image per core. Every worker (process-pool initializer, and each
+Dask task's thread) calls :func:`single_thread_worker`, which limits OpenMP,
+BLAS and OpenCV to one thread; ``jobs=1`` runs under the same limit for the
+duration of the batch (restored afterwards), so N workers use N cores and
+``--jobs 2`` on 2 cores does not oversubscribe them.
+
 Height maps are measured with :func:`fracto.surface.measure.measure_surface`.
 They are also classified when the model takes height maps alone (a model with
 ``height_only_ = True`` and a library function
@@ -23,9 +34,11 @@ stay empty.
 
 from __future__ import annotations
 
+import contextlib
 import io
 import os
 import tempfile
+import threading
 import time
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -89,34 +102,120 @@ class ScoreTask:
 
 # Per-process model cache (sha256 -> model): one load per worker process.
 _MODELS: dict[str, object] = {}
+_MODEL_LOCK = threading.Lock()
+_THREAD_STATE = threading.local()
+
+#: Environment variables that set the thread count of numerical libraries at their start.
+THREAD_ENV_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def single_thread_worker() -> None:
+    """Limit the numerical libraries of this worker (process and thread) to one thread.
+
+    Sets :data:`THREAD_ENV_VARS` to 1 (read by libraries that start later),
+    imports the scoring modules (so that their OpenMP and BLAS libraries are
+    loaded) and then limits every loaded one to one thread with
+    ``threadpoolctl.threadpool_limits(1)``, and OpenCV with
+    ``cv2.setNumThreads(1)``. OpenMP's limit belongs to the calling thread, so
+    it is applied once per thread (a Dask worker runs its tasks in threads of its
+    own); later calls in the same thread return at once.
+    """
+    if getattr(_THREAD_STATE, "single", False):
+        return
+    for var in THREAD_ENV_VARS:
+        os.environ[var] = "1"
+    from threadpoolctl import threadpool_limits
+
+    import fracto.modes.pipeline  # noqa: F401  (loads scikit-learn's OpenMP, SciPy's BLAS)
+
+    threadpool_limits(limits=1)
+    with contextlib.suppress(ImportError):
+        import cv2
+
+        cv2.setNumThreads(1)
+    _THREAD_STATE.single = True
+
+
+@contextlib.contextmanager
+def one_thread():
+    """Context: one thread for OpenMP, BLAS and OpenCV in this process, restored after."""
+    from threadpoolctl import threadpool_limits
+
+    import fracto.modes.pipeline  # noqa: F401
+
+    cv2 = None
+    with contextlib.suppress(ImportError):
+        import cv2
+    n_cv = cv2.getNumThreads() if cv2 is not None else None
+    try:
+        with threadpool_limits(limits=1):
+            if cv2 is not None:
+                cv2.setNumThreads(1)
+            yield
+    finally:
+        if cv2 is not None:
+            cv2.setNumThreads(n_cv)
+
+
+def thread_counts() -> dict[str, int]:
+    """Threads each loaded numerical library would use now (threadpoolctl and OpenCV)."""
+    from threadpoolctl import threadpool_info
+
+    out = {
+        f"{d['user_api']}:{d['internal_api']}": int(d["num_threads"]) for d in threadpool_info()
+    }
+    with contextlib.suppress(ImportError):
+        import cv2
+
+        out["opencv"] = int(cv2.getNumThreads())
+    return out
+
+
+def remember_model(spec: ModelSpec, model) -> None:
+    """Put an already loaded model into this process's cache (no second load)."""
+    with _MODEL_LOCK:
+        _MODELS.clear()
+        _MODELS[spec.sha256] = model
 
 
 def _model(spec: ModelSpec):
-    m = _MODELS.get(spec.sha256)
-    if m is None:
-        from fracto.modes.model import load_model
+    with _MODEL_LOCK:
+        m = _MODELS.get(spec.sha256)
+        if m is None:
+            from fracto.modes.model import load_model
 
-        if spec.data is not None:
-            with tempfile.TemporaryDirectory(prefix="fracto-model-") as d:
-                p = Path(d) / "model.skops"
-                p.write_bytes(spec.data)
-                m = load_model(p, trust=spec.trust)
-        else:
-            m = load_model(spec.path, trust=spec.trust)
-        _MODELS.clear()
-        _MODELS[spec.sha256] = m
-    return m
+            if spec.data is not None:
+                with tempfile.TemporaryDirectory(prefix="fracto-model-") as d:
+                    p = Path(d) / "model.skops"
+                    p.write_bytes(spec.data)
+                    m = load_model(p, trust=spec.trust)
+            else:
+                m = load_model(spec.path, trust=spec.trust)
+            _MODELS.clear()
+            _MODELS[spec.sha256] = m
+        return m
 
 
 def init_worker(spec: ModelSpec) -> None:
-    """Process-pool initializer: load the model once per worker."""
+    """Process-pool initializer: one thread, Ctrl-C left to the parent, the model loaded once."""
     import signal
 
     # Ctrl-C is handled once, by the main process (it stops the pool and keeps what is
     # stored); workers ignore it so no traceback of theirs reaches the user.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    os.environ.setdefault("OMP_NUM_THREADS", "1")
-    _model(spec)
+    single_thread_worker()
+    # a model that cannot be loaded is reported by each task (score_task), not here:
+    # an initializer that raises would break the whole pool
+    with contextlib.suppress(Exception):
+        _model(spec)
+
+
+def warm_up(spec: ModelSpec) -> int:
+    """A task that only readies its worker (one thread, the model loaded); returns its pid."""
+    single_thread_worker()
+    with contextlib.suppress(Exception):
+        _model(spec)
+    return os.getpid()
 
 
 def fraction_names(model) -> tuple[str, ...]:
@@ -149,16 +248,21 @@ def thumbnail_jpeg(
 
     img = np.asarray(image, dtype=np.float32)
     finite = np.isfinite(img)
-    lo, hi = np.percentile(img[finite], [1, 99]) if finite.any() else (0.0, 1.0)
-    grey = np.clip((np.where(finite, img, lo) - lo) / max(hi - lo, 1e-12), 0, 1)
-    # downscale first (grey by area averaging, labels by nearest), then colour
-    ny, nx = grey.shape
+    if not finite.all():
+        img = np.where(finite, img, float(img[finite].mean()) if finite.any() else 0.0)
+    # downscale first (grey by area averaging, labels by nearest), then stretch the
+    # 1st-99th percentile range of the small image (a quarter of the work or less)
+    ny, nx = img.shape
     f = max(ny, nx) / max_side_px
     size = (max(1, round(nx / f)), max(1, round(ny / f))) if f > 1 else (nx, ny)
-    g = Image.fromarray(np.round(grey * 255).astype(np.uint8), "L")
+    g = Image.fromarray(np.ascontiguousarray(img), "F")
     if size != (nx, ny):
         g = g.resize(size, Image.Resampling.BOX)
-    rgb = np.repeat((np.asarray(g, dtype=np.float32) / 255.0)[..., None], 3, axis=2)
+    small = np.asarray(g, dtype=np.float32)
+    lo, hi = np.percentile(small, [1, 99])
+    grey = np.clip((small - lo) / max(float(hi - lo), 1e-12), 0, 1)
+    grey = np.round(grey * 255) / 255.0  # the 8-bit grey levels a JPEG holds
+    rgb = np.repeat(grey.astype(np.float32)[..., None], 3, axis=2)
     if label_map is not None:
         lab = Image.fromarray(np.asarray(label_map).astype(np.uint8), "L")
         if size != (nx, ny):
@@ -214,10 +318,21 @@ def _score_sem(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
         "banner": {k: v for k, v in sem.banner.items() if k in ("rows", "side", "method")},
         "threshold": res.threshold,
     }
+    out["striation"] = _striation(img, res, px, int(st.get("seed", 0)))
     thumb = thumbnail_jpeg(
         img, res.label_map, res.classes, max_side_px=int(st.get("thumbnail_px", THUMBNAIL_PX))
     )
     return out, thumb
+
+
+def _striation(img: np.ndarray, res, px: float | None, seed: int) -> dict | None:
+    """Striation spacing in the regions classified as fatigue (None: no fatigue windows)."""
+    from fracto.modes.striation import striations_from_mode_result
+
+    if min(img.shape) < 16:
+        return None
+    sr = striations_from_mode_result(img, res, px, seed=seed)
+    return sr.to_dict() if sr is not None else None
 
 
 def _score_height(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
@@ -269,9 +384,10 @@ def score_task(task: ScoreTask, spec: ModelSpec) -> dict:
     dict
         ``key``, ``status`` (``"ok"`` / ``"error"``), ``error`` (sentence or None),
         ``result`` (JSON-ready dict or None), ``thumbnail`` (JPEG bytes or None),
-        ``seconds``.
+        ``seconds`` (wall) and ``cpu_seconds`` (CPU time of this process meanwhile).
     """
     t0 = time.perf_counter()
+    c0 = time.process_time()
     try:
         model = _model(spec)
         if task.data is not None:
@@ -299,6 +415,7 @@ def score_task(task: ScoreTask, spec: ModelSpec) -> dict:
         "result": result,
         "thumbnail": thumb,
         "seconds": time.perf_counter() - t0,
+        "cpu_seconds": time.process_time() - c0,
     }
 
 
@@ -313,46 +430,10 @@ def _score(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
 # ---------------------------------------------------------------- executors
 
 
-def run_serial(tasks: Iterable[ScoreTask], spec: ModelSpec) -> Iterator[dict]:
-    """Score the tasks one after another in this process."""
-    for t in tasks:
-        yield score_task(t, spec)
-
-
-def run_pool(tasks: Iterable[ScoreTask], spec: ModelSpec, *, jobs: int) -> Iterator[dict]:
-    """Score the tasks in `jobs` local processes, yielding results as they finish.
-
-    At most ``2 * jobs`` tasks are queued at a time. On an exception in the
-    consumer (Ctrl-C included) pending tasks are cancelled.
-    """
-    it = iter(tasks)
-    import multiprocessing
-
-    # "spawn", not fork: a parent that has already run OpenMP code (a scikit-learn
-    # prediction in this process) can leave forked children deadlocked.
-    ex = ProcessPoolExecutor(
-        max_workers=jobs,
-        mp_context=multiprocessing.get_context("spawn"),
-        initializer=init_worker,
-        initargs=(spec,),
-    )
-    pending = set()
-    try:
-        for t in it:
-            pending.add(ex.submit(score_task, t, spec))
-            if len(pending) >= 2 * jobs:
-                break
-        while pending:
-            done, pending = wait(pending, return_when=FIRST_COMPLETED)
-            for f in done:
-                yield f.result()
-                nxt = next(it, None)
-                if nxt is not None:
-                    pending.add(ex.submit(score_task, nxt, spec))
-    finally:
-        for f in pending:
-            f.cancel()
-        ex.shutdown(wait=True, cancel_futures=True)
+def score_task_one_thread(task: ScoreTask, spec: ModelSpec) -> dict:
+    """:func:`score_task` after :func:`single_thread_worker` (the Dask task function)."""
+    single_thread_worker()
+    return score_task(task, spec)
 
 
 def with_bytes(task: ScoreTask) -> ScoreTask:
@@ -388,53 +469,182 @@ def connect_dask(address: str):
         ) from exc
 
 
-def run_dask(
-    tasks: Iterable[ScoreTask],
-    spec: ModelSpec,
-    *,
-    client,
-    window: int | None = None,
-) -> Iterator[dict]:
-    """Score the tasks on a Dask cluster; file and model bytes travel with the work.
+class Scorer:
+    """Where the tasks are scored: this process, local processes or a Dask cluster.
 
     Parameters
     ----------
-    tasks : iterable of ScoreTask
-        Tasks with local paths; their bytes are attached here, a few at a time.
     spec : ModelSpec
-        The model (its bytes are scattered to every worker once).
-    client : distributed.Client
-    window : int, optional
-        Tasks in flight (default two per worker thread).
+        The model.
+    jobs : int
+        Local worker processes (1: this process).
+    scheduler : str, optional
+        Address of a Dask scheduler (a client is opened and closed here).
+    client : distributed.Client, optional
+        An existing Dask client (not closed here).
+
+    Use as a context manager; :meth:`start` (called on entry) begins the
+    workers' start-up without waiting for it, :meth:`run` scores tasks and
+    yields their results as they finish, with at most two tasks per worker in
+    flight. On an exception in the consumer (Ctrl-C included) the pending
+    tasks are cancelled.
     """
-    from dataclasses import replace
 
-    from distributed import as_completed
+    def __init__(
+        self,
+        spec: ModelSpec,
+        *,
+        jobs: int = 1,
+        scheduler: str | None = None,
+        client=None,
+    ) -> None:
+        self.spec = spec
+        self.jobs = max(1, int(jobs))
+        self.scheduler = scheduler
+        self.client = client
+        self._own_client = False
+        self._pool: ProcessPoolExecutor | None = None
+        self._spec_f = None
+        self._warm: list = []
 
-    if spec.data is None:
-        spec = replace(spec, data=Path(spec.path).read_bytes(), path=None)
-    nthreads = sum(client.nthreads().values()) or 1
-    window = window or 2 * nthreads
-    spec_f = client.scatter(spec, broadcast=True)
-    it = iter(tasks)
-    ac = as_completed()
-    n_out = 0
-    try:
-        for t in it:
-            ac.add(client.submit(score_task, with_bytes(t), spec_f, pure=False))
-            n_out += 1
-            if n_out >= window:
-                break
-        for f in ac:
-            res = f.result()
-            f.release()
-            yield res
-            nxt = next(it, None)
-            if nxt is not None:
-                ac.add(client.submit(score_task, with_bytes(nxt), spec_f, pure=False))
-    finally:
-        for f in list(ac.futures) if hasattr(ac, "futures") else []:
-            f.cancel()
+    @property
+    def kind(self) -> str:
+        if self.client is not None or self.scheduler:
+            return "dask"
+        return "pool" if self.jobs > 1 else "serial"
+
+    # ------------------------------------------------------------ life cycle
+
+    def start(self) -> Scorer:
+        """Start the workers (processes spawn and load the model in the background)."""
+        if self.kind == "dask":
+            self._start_dask()
+        elif self.kind == "pool" and self._pool is None:
+            import multiprocessing
+
+            # "spawn", not fork: a parent that has already run OpenMP code (a scikit-learn
+            # prediction in this process) can leave forked children deadlocked.
+            self._pool = ProcessPoolExecutor(
+                max_workers=self.jobs,
+                mp_context=multiprocessing.get_context("spawn"),
+                initializer=init_worker,
+                initargs=(self.spec,),
+            )
+            # one submission per worker makes the pool spawn them all now
+            self._warm = [self._pool.submit(os.getpid) for _ in range(self.jobs)]
+        return self
+
+    def _start_dask(self) -> None:
+        from dataclasses import replace
+
+        if self._spec_f is not None:
+            return
+        if self.client is None:
+            self.client = connect_dask(self.scheduler)
+            self._own_client = True
+        spec = self.spec
+        if spec.data is None:
+            spec = replace(spec, data=Path(spec.path).read_bytes(), path=None)
+        self._spec_f = self.client.scatter(spec, broadcast=True)
+        # one warm-up task per worker: one thread and the model loaded before any image
+        self._warm = [
+            self.client.submit(
+                warm_up, self._spec_f, workers=[w], allow_other_workers=False, pure=False
+            )
+            for w in self.client.scheduler_info()["workers"]
+        ]
+
+    def close(self) -> None:
+        """Stop the workers (a client opened here is closed)."""
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+        for f in self._warm:
+            with contextlib.suppress(Exception):
+                f.cancel()
+        self._warm = []
+        if self._own_client and self.client is not None:
+            self.client.close()
+            self.client = None
+            self._own_client = False
+        self._spec_f = None
+
+    def __enter__(self) -> Scorer:
+        return self.start()
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # ------------------------------------------------------------ scoring
+
+    def run(self, tasks: Iterable[ScoreTask]) -> Iterator[dict]:
+        """Score the tasks, yielding one result dict per task as it finishes."""
+        tasks = list(tasks)
+        if not tasks:
+            return
+        kind = self.kind
+        if kind == "serial" or (kind == "pool" and len(tasks) == 1 and self._pool is None):
+            with one_thread():
+                for t in tasks:
+                    yield score_task(t, self.spec)
+            return
+        self.start()
+        if kind == "dask":
+            yield from self._run_dask(tasks)
+        else:
+            yield from self._run_pool(tasks)
+
+    def _run_pool(self, tasks: list[ScoreTask]) -> Iterator[dict]:
+        ex = self._pool
+        it = iter(tasks)
+        pending: set = set()
+        try:
+            for t in it:
+                pending.add(ex.submit(score_task, t, self.spec))
+                if len(pending) >= 2 * self.jobs:
+                    break
+            while pending:
+                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for f in done:
+                    yield f.result()
+                    nxt = next(it, None)
+                    if nxt is not None:
+                        pending.add(ex.submit(score_task, nxt, self.spec))
+        finally:
+            for f in pending:
+                f.cancel()
+
+    def _run_dask(self, tasks: list[ScoreTask]) -> Iterator[dict]:
+        from distributed import as_completed
+
+        client = self.client
+        nthreads = sum(client.nthreads().values()) or 1
+        window = 2 * nthreads
+        it = iter(tasks)
+        ac = as_completed()
+        n_out = 0
+        try:
+            for t in it:
+                ac.add(
+                    client.submit(score_task_one_thread, with_bytes(t), self._spec_f, pure=False)
+                )
+                n_out += 1
+                if n_out >= window:
+                    break
+            for f in ac:
+                res = f.result()
+                f.release()
+                yield res
+                nxt = next(it, None)
+                if nxt is not None:
+                    ac.add(
+                        client.submit(
+                            score_task_one_thread, with_bytes(nxt), self._spec_f, pure=False
+                        )
+                    )
+        finally:
+            for f in list(ac.futures) if hasattr(ac, "futures") else []:
+                f.cancel()
 
 
 def run_tasks(
@@ -445,19 +655,10 @@ def run_tasks(
     scheduler: str | None = None,
     client=None,
 ) -> Iterator[dict]:
-    """Pick the executor: a Dask client/scheduler, a process pool, or this process."""
-    if client is not None:
-        yield from run_dask(tasks, spec, client=client)
-    elif scheduler:
-        c = connect_dask(scheduler)
-        try:
-            yield from run_dask(tasks, spec, client=c)
-        finally:
-            c.close()
-    elif jobs > 1 and len(tasks) > 1:
-        yield from run_pool(tasks, spec, jobs=min(jobs, len(tasks)))
-    else:
-        yield from run_serial(tasks, spec)
+    """Score `tasks` with a :class:`Scorer` made for this call."""
+    jobs = min(jobs, len(tasks)) if tasks else 1
+    with Scorer(spec, jobs=jobs, scheduler=scheduler, client=client) as sc:
+        yield from sc.run(tasks)
 
 
 ProgressFn = Callable[[int, int, str], None]

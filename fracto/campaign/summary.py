@@ -11,6 +11,12 @@ deviation (ddof = 1), the number of values n, and the 95 % confidence interval
 of the mean, mean ± t(0.975, n − 1)·s/√n with Student's t distribution
 (Student 1908). With n = 1 the standard deviation and interval are missing.
 
+Striation spacing (µm) of the fatigue regions is a metric like the others; its
+per-image interval bounds are not; the crack-growth direction is averaged as an
+axial angle (:func:`axial_mean_deg`, Fisher 1993) into
+``striation_direction_axial_mean_deg``, and the windows measured are summed
+(``striation_windows_total``).
+
 Numeric metrics are the mode fractions (not their interval bounds), the
 quality measures, the areal parameters and fractography ratios, and every
 carried-through manifest column whose values are all numbers and whose name
@@ -47,6 +53,14 @@ QUALITY_COLUMNS = (
     "fit_to_score",
 )
 TEXT_METRIC_COLUMNS = ("quality_notes",)
+#: Striation columns of images.csv (fracto.modes.striation in the fatigue regions).
+STRIATION_COLUMNS = (
+    "striation_spacing_um",
+    "striation_spacing_ci95_low_um",
+    "striation_spacing_ci95_high_um",
+    "striation_direction_deg",
+    "striation_windows",
+)
 
 _UNIT_SUFFIX = {
     "": "",
@@ -141,6 +155,7 @@ def image_rows(
         *mode_cols,
         *QUALITY_COLUMNS,
         *TEXT_METRIC_COLUMNS,
+        *STRIATION_COLUMNS,
         *surface_cols,
         "valid_fraction",
         "overlay",
@@ -182,11 +197,47 @@ def image_rows(
         for sym, p in (res.get("parameters") or {}).items():
             row[sym + unit_suffix(p.get("unit"))] = _num(p.get("value"))
         row["valid_fraction"] = _num(res.get("valid_fraction"))
+        row.update(striation_cells(res.get("striation")))
         for c, name in extra_names.items():
             text = r.extra.get(c, "")
             row[name] = _parse_number(text) if c in numeric_extra else text
         rows.append(row)
     return rows, columns
+
+
+def striation_cells(st: dict | None) -> dict:
+    """images.csv striation cells of a stored striation result (µm only; else empty).
+
+    A spacing measured without a pixel size (in px) is not put in the µm columns;
+    it stays in the result store.
+    """
+    out: dict = dict.fromkeys(STRIATION_COLUMNS)
+    if not st:
+        return out
+    out["striation_windows"] = _num(st.get("n_windows"))
+    out["striation_direction_deg"] = _num(st.get("direction_deg"))
+    if st.get("unit") == "um":
+        out["striation_spacing_um"] = _num(st.get("spacing_um"))
+        lo, hi = (st.get("ci95_um") or [None, None])[:2]
+        out["striation_spacing_ci95_low_um"] = _num(lo)
+        out["striation_spacing_ci95_high_um"] = _num(hi)
+    return out
+
+
+def axial_mean_deg(angles_deg: Sequence[float]) -> float | None:
+    """Mean of axial angles (θ and θ + 180° alike) in [0, 180): half the angle of mean exp(2iθ).
+
+    References
+    ----------
+    Fisher, N. I. (1993). Statistical Analysis of Circular Data, Cambridge UP (axial data).
+    """
+    a = np.radians([x for x in angles_deg if x is not None and math.isfinite(x)])
+    if a.size == 0:
+        return None
+    z = np.exp(2j * a).mean()
+    if abs(z) < 1e-12:
+        return None  # no preferred axis
+    return float(math.degrees(0.5 * math.atan2(z.imag, z.real)) % 180.0)
 
 
 def _cell(v) -> str:
@@ -248,7 +299,16 @@ def specimen_rows(
     """One row per specimen (in order of first appearance) with the statistics of each metric."""
     numeric_extra = set(metric_extra_columns(manifest.rows, manifest.extra_columns))
     text_extra = [c for c in manifest.extra_columns if c not in numeric_extra]
-    skip = {"temperature_C", "pixel_size_um", "overlay", "content_sha256"}
+    skip = {
+        "temperature_C",
+        "pixel_size_um",
+        "overlay",
+        "content_sha256",
+        "striation_spacing_ci95_low_um",
+        "striation_spacing_ci95_high_um",
+        "striation_direction_deg",  # axial: its own mean below
+        "striation_windows",  # a count: summed below
+    }
     metrics = []
     for c in columns:
         if c in skip or c in BASE_COLUMNS or c.endswith(("_ci95_low", "_ci95_high")):
@@ -268,6 +328,9 @@ def specimen_rows(
     out_cols += [c for c in text_extra if c in columns]
     for m in metrics:
         out_cols += [f"{m}_mean", f"{m}_sd", f"{m}_n", f"{m}_ci95_low", f"{m}_ci95_high"]
+    has_striation = "striation_windows" in columns
+    if has_striation:
+        out_cols += ["striation_direction_axial_mean_deg", "striation_windows_total"]
     out = []
     for spec, rs in by_spec.items():
         ok = [r for r in rs if r["status"] == "ok"]
@@ -287,6 +350,12 @@ def specimen_rows(
             s = mean_interval([v for v in vals if v is not None])
             for k, v in s.items():
                 row[f"{m}_{k}"] = v
+        if has_striation:
+            row["striation_direction_axial_mean_deg"] = axial_mean_deg(
+                [_num(r.get("striation_direction_deg")) for r in ok]
+            )
+            wins = [_num(r.get("striation_windows")) for r in ok]
+            row["striation_windows_total"] = sum(w for w in wins if w is not None)
         out.append(row)
     return out, out_cols
 

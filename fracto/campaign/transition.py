@@ -17,7 +17,13 @@ least squares:
 The model is chosen by AICc [2]_; when the constant model has the lowest AICc
 the quantity is reported as showing no trend. Intervals come from a
 nonparametric bootstrap that resamples specimens with replacement (percentile
-intervals, seeded) and refits the chosen model.
+intervals, seeded) and refits the chosen model. For a mode fraction each
+replicate also draws every field's fraction within that field's own 95 %
+interval (``<mode>_ci95_low`` / ``_high`` of images.csv): a normal with the
+interval as its central 95 % (σ = width / 3.92), clipped to [0, 1], and the
+specimen mean is taken over the drawn fields; the fields' measurement
+uncertainty then widens the interval of the transition temperature as the
+spread between specimens does.
 
 References
 ----------
@@ -264,6 +270,18 @@ def toughness_columns(rows: list[dict]) -> list[str]:
     return [k for k in keys if any(math.isfinite(_num(r.get(k))) for r in rows)]
 
 
+def specimen_groups(rows: list[dict]) -> dict[str, list[dict]]:
+    """Rows by specimen name (a row without one is a specimen of its own)."""
+    groups: dict[str, list[dict]] = {}
+    for r in rows:
+        name = r.get("specimen")
+        name = str(name).strip() if name is not None else ""
+        if not name:
+            name = f"field:{r.get('path', len(groups))}"
+        groups.setdefault(name, []).append(r)
+    return groups
+
+
 def aggregate_by_specimen(rows: list[dict], quantities: list[str]) -> tuple[list[dict], list[str]]:
     """Mean, standard deviation and count per specimen of each quantity.
 
@@ -273,13 +291,7 @@ def aggregate_by_specimen(rows: list[dict], quantities: list[str]) -> tuple[list
     and warnings.
     """
     warnings: list[str] = []
-    groups: dict[str, list[dict]] = {}
-    for r in rows:
-        name = r.get("specimen")
-        name = str(name).strip() if name is not None else ""
-        if not name:
-            name = f"field:{r.get('path', len(groups))}"
-        groups.setdefault(name, []).append(r)
+    groups = specimen_groups(rows)
     out = []
     for name, rs in groups.items():
         temps = np.array([_num(r.get("temperature_C")) for r in rs])
@@ -349,6 +361,7 @@ def fit_quantity(
     rng: np.random.Generator,
     n_boot: int,
     transition_temperature_C: float | None = None,
+    fields: list[tuple[np.ndarray, np.ndarray]] | None = None,
 ) -> dict:
     """Fit the candidate models to specimen means, choose by AICc, bootstrap by specimen.
 
@@ -364,6 +377,11 @@ def fit_quantity(
         Number of bootstrap replicates (specimens resampled with replacement).
     transition_temperature_C : float, optional
         When given, characteristic temperatures are also reported as offsets from it.
+    fields : list of (values, sigmas), optional
+        Per specimen (aligned with `t`), its fields' values and the standard
+        deviation of each value's uncertainty; each bootstrap replicate then
+        draws every field's value from a normal around it (clipped to [0, 1], for
+        fractions) and uses the mean of the drawn values as the specimen's.
 
     Returns
     -------
@@ -379,6 +397,10 @@ def fit_quantity(
     y = np.asarray(y, dtype=np.float64)
     keep = np.isfinite(t) & np.isfinite(y)
     t, y = t[keep], y[keep]
+    if fields is not None:
+        fields = [f for f, k in zip(fields, keep, strict=True) if k]
+        if not any(np.any(np.asarray(sd) > 0) for _, sd in fields):
+            fields = None  # no field intervals: nothing to draw
     n = int(t.size)
     n_temps = int(np.unique(t).size)
     rec: dict[str, Any] = {
@@ -435,9 +457,8 @@ def fit_quantity(
         idx = rng.integers(0, n, size=n)
         if best != "constant" and np.unique(t[idx]).size < MIN_TEMPERATURES:
             continue
-        qb, _, ok = _fit_scaled(
-            best, u_all[idx], v_all[idx], scale, [q] if best != "constant" else None
-        )
+        vb = v_all[idx] if fields is None else scale.v(_draw_specimen_means(fields, idx, rng))
+        qb, _, ok = _fit_scaled(best, u_all[idx], vb, scale, [q] if best != "constant" else None)
         if not ok or _pinned(best, qb, scale):
             continue
         n_conv += 1
@@ -447,8 +468,14 @@ def fit_quantity(
     rec["bootstrap"] = {
         "n_boot": int(n_boot),
         "n_converged": int(n_conv),
-        "method": "percentile 95 % interval; specimens resampled with replacement; "
-        "chosen model refitted from the full-data estimate; replicates whose fit failed, "
+        "method": "percentile 95 % interval; specimens resampled with replacement"
+        + (
+            ", each field's value drawn within its own interval (normal, sigma = 95 % "
+            "width / 3.92, clipped to [0, 1])"
+            if fields is not None
+            else ""
+        )
+        + "; chosen model refitted from the full-data estimate; replicates whose fit failed, "
         f"whose characteristic temperature sat on its bound or with < {MIN_TEMPERATURES} "
         "distinct temperatures count as not converged",
     }
@@ -522,6 +549,41 @@ def fit_quantity(
     return rec
 
 
+#: z of the central 95 % of a normal distribution.
+Z95 = 1.959963984540054
+
+
+def _draw_specimen_means(
+    fields: list[tuple[np.ndarray, np.ndarray]], idx: np.ndarray, rng: np.random.Generator
+) -> np.ndarray:
+    """Specimen means of field values drawn within their intervals, for specimens `idx`."""
+    out = np.empty(idx.size)
+    for j, i in enumerate(idx):
+        v, sd = fields[i]
+        out[j] = float(np.mean(np.clip(v + sd * rng.standard_normal(v.size), 0.0, 1.0)))
+    return out
+
+
+def field_uncertainty(rows: list[dict], quantity: str) -> tuple[np.ndarray, np.ndarray]:
+    """Values of `quantity` in `rows` and the σ of each from its 95 % interval columns.
+
+    ``<mode>_fraction`` has ``<mode>_ci95_low`` and ``<mode>_ci95_high``; σ =
+    (high − low) / (2 · 1.96), the normal whose central 95 % is the interval.
+    Fields without finite bounds get σ = 0 (drawn as they are).
+    """
+    stem = quantity[: -len("_fraction")] if quantity.endswith("_fraction") else quantity
+    vals, sds = [], []
+    for r in rows:
+        v = _num(r.get(quantity))
+        if not math.isfinite(v):
+            continue
+        lo, hi = _num(r.get(f"{stem}_ci95_low")), _num(r.get(f"{stem}_ci95_high"))
+        sd = (hi - lo) / (2 * Z95) if math.isfinite(lo) and math.isfinite(hi) and hi > lo else 0.0
+        vals.append(v)
+        sds.append(sd)
+    return np.array(vals), np.array(sds)
+
+
 def characteristic_temperature(fit: dict) -> tuple[float | None, list[float] | None]:
     """The characteristic temperature of a fit record and its 95 % interval.
 
@@ -586,6 +648,7 @@ def analyse_campaign(
     transition_temperature_C: float | None,
     seed: int = 0,
     n_boot: int = 1000,
+    field_intervals: bool = True,
 ) -> dict:
     """Transition analysis of a campaign: per-mode (and toughness) curves against temperature.
 
@@ -602,6 +665,9 @@ def analyse_campaign(
         Seed of the bootstrap generator.
     n_boot : int
         Bootstrap replicates per fit.
+    field_intervals : bool
+        Draw each field's mode fraction within its own 95 % interval in the
+        bootstrap (where the rows carry ``<mode>_ci95_low`` / ``_high``).
 
     Returns
     -------
@@ -637,6 +703,7 @@ def analyse_campaign(
     tough = toughness_columns(used)
     quantities = [f"{m}_fraction" for m in MODES] + tough
     specimens, warnings = aggregate_by_specimen(used, quantities)
+    groups = specimen_groups(used)
     temps = np.array([s["temperature_C"] for s in specimens], dtype=np.float64)
     n_t = int(np.unique(temps).size)
     if n_t < MIN_TEMPERATURES:
@@ -654,7 +721,21 @@ def analyse_campaign(
         y = np.array([_num(s.get(q)) for s in specimens])
         name = q[: -len("_fraction")] if q.endswith("_fraction") and q[:-9] in MODES else q
         rec = {"quantity": q, "unit": "1 (area fraction)" if name in MODES else _unit_of(q)}
-        rec.update(fit_quantity(temps, y, rng=rng, n_boot=n_boot, transition_temperature_C=given))
+        fields = (
+            [field_uncertainty(groups[sp["specimen"]], q) for sp in specimens]
+            if name in MODES and field_intervals
+            else None
+        )
+        rec.update(
+            fit_quantity(
+                temps,
+                y,
+                rng=rng,
+                n_boot=n_boot,
+                transition_temperature_C=given,
+                fields=fields,
+            )
+        )
         fits[name] = rec
 
     # ---- transition temperature: given, or from the mode that varies most
@@ -734,6 +815,10 @@ def analyse_campaign(
             "formulas": FORMULAS,
             "selection": "AICc (Burnham & Anderson 2002), k = regression parameters + 1",
             "aggregation": "mean per specimen; each specimen weighs equally in the fits",
+            "field_intervals": "each field's mode fraction drawn within its own 95 % interval "
+            "in every bootstrap replicate (normal, sigma = width / 3.92, clipped to [0, 1])"
+            if field_intervals
+            else "not used",
             "temperature_axis": "fits in T (°C); offsets from the transition temperature "
             "are reported as *_offset_C",
             "width_definition": WIDTH_DEFINITION,

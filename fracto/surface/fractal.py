@@ -212,7 +212,9 @@ def radial_psd(
     zz -= np.float32(np.mean(zz, dtype=np.float64))
     zz *= np.hanning(ny).astype(np.float32)[:, None]
     zz *= np.hanning(nx).astype(np.float32)[None, :]
-    spec = sfft.rfft2(zz, workers=-1)
+    # workers=None: scipy's default (one thread, or the caller's scipy.fft.set_workers);
+    # a batch runs one image per core and must not start more FFT threads.
+    spec = sfft.rfft2(zz, workers=None)
     del zz
     power = np.abs(spec) ** 2
     del spec
