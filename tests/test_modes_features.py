@@ -215,3 +215,36 @@ def test_reduced_coarse_scales_agree_with_full_resolution():
         a, b = reduced.X[:, col[name]], full.X[:, col[name]]
         assert np.corrcoef(a, b)[0, 1] > 0.95, name
         assert np.median(a) == pytest.approx(np.median(b), rel=0.1), name
+
+
+def test_saved_training_regions_load_without_pickle(tmp_path):
+    # Contract of fracto-default.regions.npz: plain arrays (numpy.load with
+    # allow_pickle=False), at most max_regions rows, the stated keys and feature version.
+    from fracto.classes import MODES
+    from fracto.modes.default_model import save_regions
+    from fracto.modes.features import FEATURE_SET_VERSION
+    from fracto.modes.training import TrainingSet
+
+    rng = np.random.default_rng(6)
+    names = feature_names()
+    X = rng.normal(size=(50, len(names))).astype(np.float32)
+    y = np.array(MODES)[rng.integers(0, 4, 50)]
+    ts = TrainingSet(X, y, np.repeat(np.arange(5), 10), names)
+    n = save_regions(tmp_path / "r.npz", ts, MODES, max_regions=20, seed=1)
+    with np.load(tmp_path / "r.npz", allow_pickle=False) as z:
+        assert set(z.files) == {
+            "X",
+            "y",
+            "groups",
+            "feature_names",
+            "classes",
+            "feature_set_version",
+        }
+        assert n == 20 and z["X"].shape == (20, len(names))
+        assert str(z["feature_set_version"]) == FEATURE_SET_VERSION
+        assert list(z["classes"]) == list(MODES) and list(z["feature_names"]) == names
+        # the rows kept are rows of the input, with their labels
+        rows = {tuple(r) for r in X}
+        assert all(tuple(r) in rows for r in z["X"])
+        i = [int(np.nonzero((X == r).all(axis=1))[0][0]) for r in z["X"]]
+        assert (z["y"] == y[i]).all() and (z["groups"] == ts.groups[i]).all()
