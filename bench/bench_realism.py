@@ -66,15 +66,34 @@ def real_tiles(real_dir: str, max_tiles: int, rng: np.random.Generator):
     return out
 
 
-def synth_tiles(n: int, size: int, max_tiles: int, seed: int):
+def grain_size(kind: str, rng: np.random.Generator):
+    """Grain sizes of one synthetic field: ``lognormal`` (one population, σ of ln d
+    0.3), ``bimodal`` (fine and coarse grains mixed in the field) or ``mixed``
+    (either, with equal odds)."""
+    from fracto.synth import GrainSize
+
+    if kind == "mixed":
+        kind = "bimodal" if rng.uniform() < 0.5 else "lognormal"
+    if kind == "bimodal":
+        fine = float(rng.uniform(1.5, 3.5))
+        return GrainSize(
+            "bimodal",
+            fine_um=fine,
+            coarse_um=fine * float(rng.uniform(3.0, 6.0)),
+            coarse_volume_fraction=float(rng.uniform(0.3, 0.6)),
+        )
+    return GrainSize(mean_um=float(rng.uniform(4.0, 12.0)), spread=0.3)
+
+
+def synth_tiles(n: int, size: int, max_tiles: int, seed: int, grains: str = "lognormal"):
     from fracto.modes.features import region_features
-    from fracto.synth import GrainSize, RenderSettings, make_surface
+    from fracto.synth import RenderSettings, make_surface
 
     rng = np.random.default_rng(seed)
     out = []
     for i in range(n):
         f_ig = float(rng.uniform(0.2, 0.8))
-        gs = GrainSize(mean_um=float(rng.uniform(4.0, 12.0)), spread=0.3)
+        gs = grain_size(grains, rng)
         rs = replace(RenderSettings.random(rng), banner=False)
         s = make_surface(
             size=size,
@@ -101,6 +120,12 @@ def main() -> None:
     ap.add_argument("--max-tiles", type=int, default=150, help="tiles kept per image")
     ap.add_argument("--folds", type=int, default=5)
     ap.add_argument("--seed", type=int, default=2026)
+    ap.add_argument(
+        "--grains",
+        choices=("lognormal", "bimodal", "mixed"),
+        default="lognormal",
+        help="grain sizes of the synthetic fields",
+    )
     args = ap.parse_args()
 
     from sklearn.linear_model import LogisticRegression
@@ -115,7 +140,7 @@ def main() -> None:
     if not real:
         raise SystemExit(f"no *.jpg images in {args.real_dir}")
     t1 = time.perf_counter()
-    synth = synth_tiles(args.n_synth, args.size, args.max_tiles, args.seed + 1)
+    synth = synth_tiles(args.n_synth, args.size, args.max_tiles, args.seed + 1, args.grains)
     t2 = time.perf_counter()
     names = real[0][2]
     X = np.vstack([x for _, x, _ in real + synth]).astype(np.float64)

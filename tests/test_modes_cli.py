@@ -161,3 +161,108 @@ def test_train_masks_with_own_class_and_bad_masks(tmp_path, capsys):
     Image.fromarray(np.full((160, 160), 9, np.uint8)).save(tmp_path / "mask0.png")
     assert main(["train", "--masks", str(lst), "--out", str(out)]) == 2
     assert "outside" in capsys.readouterr().err
+
+
+def test_classify_corrected_and_counted_fractions(tmp_path, model_file, capsys):
+    img, _ = mixed_field(256, 30, seed=301)
+    f = _png(tmp_path / "field.png", img)
+    assert main(["classify", f, "--model", model_file, "--json", "--n-boot", "100"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["correction"]["applied"] is True
+    assert d["fractions"]["unclassified"]["value"] == 0.0
+    unc = d["fractions_uncorrected"]
+    assert d["correction"]["unclassified_uncorrected"] == pytest.approx(
+        unc["unclassified"]["value"]
+    )
+    assert sum(v["value"] for v in d["fractions"].values()) == pytest.approx(1.0)
+    assert sum(v["value"] for v in unc.values()) == pytest.approx(1.0)
+    for v in d["fractions"].values():
+        assert v["ci95"][0] <= v["value"] <= v["ci95"][1]
+    assert (
+        main(
+            ["classify", f, "--model", model_file, "--json", "--n-boot", "100", "--no-correction"]
+        )
+        == 0
+    )
+    off = json.loads(capsys.readouterr().out)
+    assert off["correction"]["applied"] is False and "switched off" in off["correction"]["reason"]
+    assert off["fractions"] == off["fractions_uncorrected"] == unc
+    assert main(["classify", f, "--model", model_file, "--n-boot", "50"]) == 0
+    assert "corrected" in capsys.readouterr().out
+
+
+def test_explain_ranks_the_feature_that_decides():
+    # Ground truth by construction: the class depends on feature 0 only, the other
+    # columns are noise; setting feature 0 to its median must lower the predicted
+    # class's probability most for nearly every region (the blocks on the seam between
+    # the two halves average both classes and may go either way).
+    from fracto.modes.explain import explain_regions
+    from fracto.modes.model import ModeClassifier
+
+    rng = np.random.default_rng(0)
+    n = 600
+    X = rng.normal(size=(n, 4)).astype(np.float32)
+    y = np.where(X[:, 0] > 0, "ductile", "fatigue")
+    groups = np.repeat(np.arange(6), n // 6)
+    m = ModeClassifier(("ductile", "fatigue"), max_iter=15, n_importance_repeats=2).fit(
+        X, y, groups, feature_names=["key", "n1", "n2", "n3"]
+    )
+    assert (
+        max(
+            dict(zip(m.feature_names_, m.feature_importance_, strict=True)).items(),
+            key=lambda kv: kv[1],
+        )[0]
+        == "key"
+    )
+    Xt = rng.normal(size=(100, 4)).astype(np.float32)
+    Xt[:, 0] = np.where(np.arange(100) % 10 < 5, 2.0, -2.0)  # left half one class
+    e = explain_regions(m, Xt, (10, 10), np.zeros((11, 11), int), top=2, block_px=8)
+    assert (e.features[..., 0] == 0).mean() > 0.9
+    assert (e.drops[..., 0] >= e.drops[..., 1]).all()
+    rec = e.records()
+    assert len(rec) == 121 and rec[1]["x_px"] == 8.0
+    assert set(rec[0]["top_features"][0]["training_percentiles"]) == {
+        "p5",
+        "p25",
+        "p50",
+        "p75",
+        "p95",
+    }
+
+
+def test_classify_explain_files_and_confidence_overlay(tmp_path, model_file, capsys):
+    import csv
+
+    img, _ = mixed_field(192, 30, seed=302)
+    f = _png(tmp_path / "field.png", img)
+    ex_csv, ex_json, ov = tmp_path / "why.csv", tmp_path / "why.json", tmp_path / "ov.png"
+    args = ["classify", f, "--model", model_file, "--n-boot", "50"]
+    assert main([*args, "--explain", str(ex_csv), "--explain-top", "2"]) == 0
+    rows = list(csv.DictReader(ex_csv.open()))
+    assert rows and {r["rank"] for r in rows} == {"1", "2"}
+    assert all(float(r["train_p5"]) <= float(r["train_p95"]) for r in rows)
+    assert (
+        main([*args, "--explain", str(ex_json), "--overlay", str(ov), "--overlay-confidence"]) == 0
+    )
+    d = json.loads(ex_json.read_text())
+    assert len(d["regions"]) * 2 == len(rows) and len(d["regions"][0]["top_features"]) == 3
+    assert Image.open(ov).format == "PNG"
+    assert main([*args, "--explain", str(tmp_path / "why.txt")]) == 2
+    assert main([*args, "--explain", str(ex_csv), "--explain-top", "0"]) == 2
+    assert "Traceback" not in capsys.readouterr().err
+
+
+def test_overlay_opacity_follows_confidence():
+    # Where the model is sure the mode colour must be stronger than where it is at chance.
+    from fracto.modes.overlay import overlay_png
+
+    grey = np.full((400, 400), 0.5)
+    lab = np.ones((400, 400), np.uint8)
+    conf = np.where(np.arange(400)[None, :] < 200, 1.0, 0.25) * np.ones((400, 1))
+    png = overlay_png(grey, lab, ("intergranular", "ductile"), confidence=conf)
+    import io
+
+    a = np.asarray(Image.open(io.BytesIO(png)).convert("RGB")).astype(float)
+    # the 400 px image fills the left of the figure below a 40 px title band
+    sure, unsure = a[240, 100], a[240, 300]
+    assert np.ptp(sure) > np.ptp(unsure) + 20

@@ -283,6 +283,25 @@ def test_secant_cap_and_effects():
     assert im[32, 32] > 1.2 * im[32, 10]
 
 
+def test_scan_noise_rms_and_row_correlation():
+    # White noise smoothed by a Gaussian of σ pixels has a Gaussian autocorrelation of
+    # σ√2: neighbour correlation exp(-1 / (4 σ²)) along the rows, none across them
+    # (analytic); the multiplicative scan noise on a flat plane must show exactly that.
+    from dataclasses import replace
+
+    sig = 3.0
+    s = replace(RenderSettings.secant_only(yield_base=0.3), scan_noise=0.05, scan_noise_px=sig)
+    img = render_sem(np.zeros((256, 1024)), 0.1, s, seed=2).astype(np.float64)
+    rel = img / 0.3 - 1.0
+    assert float(np.std(rel)) == pytest.approx(0.05, rel=0.05)
+    along = float(np.corrcoef(rel[:, 1:].ravel(), rel[:, :-1].ravel())[0, 1])
+    across = float(np.corrcoef(rel[1:].ravel(), rel[:-1].ravel())[0, 1])
+    assert along == pytest.approx(math.exp(-1.0 / (4 * sig * sig)), abs=0.02)
+    assert abs(across) < 0.02
+    with pytest.raises(FractoInputError):
+        RenderSettings(scan_noise=-0.1)
+
+
 def test_render_random_settings_and_banner():
     rng = np.random.default_rng(3)
     h = make_surface(size=96, seed=1, render=RenderSettings.secant_only()).height_um
@@ -488,3 +507,31 @@ def test_demo_regenerates_byte_identical(tmp_path):
         if p.suffix in (".png", ".tif"):
             rel = p.relative_to(tmp_path / "d")
             assert p.read_bytes() == (DEMO_DIR / rel).read_bytes(), rel
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3])
+def test_fragment_flake_area_is_superellipse_area(seed):
+    # Analytic: the superellipse |a/r|^p + |b/(r/e)|^p <= 1 has area
+    # 4 r (r/e) Γ(1 + 1/p)² / Γ(1 + 2/p) (p = 2: the ellipse π r²/e). An untilted
+    # flake on a flat map raises exactly the pixels inside it (to 2 % at r = 40 px).
+    from fracto.synth.fragments import place_fragments
+
+    r = 40.0
+    flat = np.zeros((128, 128))
+    out = place_fragments(
+        flat,
+        0.1,
+        np.array([[64.0, 64.0]]),
+        np.array([r]),
+        np.random.default_rng(seed),
+        max_tilt_deg=0.0,
+    )
+    rng = np.random.default_rng(seed)  # the same draws: orientation, exponent, aspect ratio
+    rng.uniform(0, math.pi, 1)
+    p = float(rng.uniform(1.0, 3.0, 1)[0])
+    e = float(rng.uniform(1.0, 2.0, 1)[0])
+    area = 4 * r * (r / e) * math.gamma(1 + 1 / p) ** 2 / math.gamma(1 + 2 / p)
+    raised = np.count_nonzero(out > 0)
+    assert raised == pytest.approx(area, rel=0.02)
+    assert np.allclose(out[out > 0], 0.5 * r * 0.1)  # thickness 0.5 r, flat on a flat base
+    np.testing.assert_array_equal(flat, 0.0)  # input unchanged

@@ -35,6 +35,7 @@ COMMAND_MODULES = (
     "crackpath",
     "batch",
     "transition",
+    "suggest",
 )
 
 

@@ -10,15 +10,21 @@ from fracto.classes import MODES, UNCLASSIFIED
 def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_size, settings):
     from fracto import CAUTION, __version__
 
-    fr = res.fractions.to_dict()
-    fractions = {}
-    for name in (*MODES, *[c for c in res.classes if c not in MODES], UNCLASSIFIED):
-        fractions[name] = fr.get(name, {"value": 0.0, "ci95": [0.0, 0.0]})
+    order = (*MODES, *[c for c in res.classes if c not in MODES], UNCLASSIFIED)
+
+    def _ordered(fr):
+        return {n: fr.get(n, {"value": 0.0, "ci95": [0.0, 0.0]}) for n in order}
+
+    fractions = _ordered(res.fractions.to_dict())
+    unc = res.fractions_uncorrected or res.fractions
+    fractions_uncorrected = _ordered(unc.to_dict())
     q = res.quality.to_dict()
     ps = pixel_size.to_dict()
     ps["scale"] = res.features.scale.to_dict()
     return {
         "fractions": fractions,
+        "fractions_uncorrected": fractions_uncorrected,
+        "correction": res.correction,
         "model": {
             "path": str(model_path),
             "sha256": sha,
@@ -33,7 +39,11 @@ def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_s
         "pixel_size": ps,
         "quality": q,
         "regions": res.to_dict()["regions"],
-        "settings": {**settings, "bootstrap": res.fractions.settings()},
+        "settings": {
+            **settings,
+            "bootstrap": res.fractions.settings(),
+            "bootstrap_uncorrected": unc.settings(),
+        },
         "seed": res.seed,
         "version": __version__,
         "caution": CAUTION,
@@ -42,10 +52,24 @@ def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_s
 
 def format_table(d: dict) -> str:
     lines = [f"{d['image']['path']}  ({d['image']['shape'][1]} x {d['image']['shape'][0]} px)"]
-    lines.append(f"{'mode':<16}{'fraction':>10}   95 % interval")
+    applied = d["correction"].get("applied", False)
+    head = "corrected" if applied else "fraction"
+    lines.append(f"{'mode':<16}{head:>10}   95 % interval       counted   95 % interval")
     for name, v in d["fractions"].items():
         lo, hi = v["ci95"]
-        lines.append(f"{name:<16}{v['value']:>10.3f}   [{lo:.3f}, {hi:.3f}]")
+        u = d["fractions_uncorrected"][name]
+        ulo, uhi = u["ci95"]
+        lines.append(
+            f"{name:<16}{v['value']:>10.3f}   [{lo:.3f}, {hi:.3f}]   "
+            f"{u['value']:>8.3f}   [{ulo:.3f}, {uhi:.3f}]"
+        )
+    if applied:
+        lines.append(
+            "corrected for the model's held-out errors (adjusted classify and count); the "
+            "interval counts them too"
+        )
+    else:
+        lines.append(f"not corrected: {d['correction'].get('reason', '')}")
     q = d["quality"]
     verdict = "fit to score" if q["fit_to_score"] else "NOT fit to score"
     lines.append(
@@ -79,6 +103,21 @@ def format_table(d: dict) -> str:
 @click.option("--threshold", type=float, help="Probability below which a region is unclassified.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of the bootstrap.")
 @click.option("--n-boot", type=int, default=1000, show_default=True, help="Bootstrap replicates.")
+@click.option(
+    "--no-correction",
+    is_flag=True,
+    help="Report counted fractions, not corrected for the model's errors.",
+)
+@click.option(
+    "--explain",
+    "explain_path",
+    type=click.Path(dir_okay=False),
+    help="Write each region's deciding features here (.csv or .json).",
+)
+@click.option("--explain-top", type=int, default=3, show_default=True, help="Features per region.")
+@click.option(
+    "--overlay-confidence", is_flag=True, help="Shade the overlay colours by confidence."
+)
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object.")
 def command(
     image,
@@ -93,9 +132,17 @@ def command(
     threshold,
     seed,
     n_boot,
+    no_correction,
+    explain_path,
+    explain_top,
+    overlay_confidence,
     as_json,
 ) -> None:
-    """Mode map and area fractions (95 % block-bootstrap interval) of IMAGE."""
+    """Mode map and area fractions with 95 % intervals of IMAGE.
+
+    The fractions are corrected for the model's own held-out errors and the
+    interval counts both those errors and the spatial spread of the regions.
+    """
     import numpy as np
 
     from fracto.errors import FractoInputError
@@ -106,6 +153,8 @@ def command(
     from fracto.modes.pipeline import classify_image
     from fracto.modes.training import read_grey_image
 
+    if explain_path and not explain_path.lower().endswith((".csv", ".json")):
+        raise FractoInputError(f"The explanation file '{explain_path}' must end in .csv or .json.")
     ps_given = PixelSize.parse(pixel_size) if pixel_size else None
     mpath = model_path or default_model_path()
     model = load_model(mpath, trust=trust)
@@ -129,6 +178,7 @@ def command(
         threshold=threshold,
         seed=seed,
         n_boot=n_boot,
+        correction=not no_correction,
     )
     settings = {
         "threshold": res.threshold,
@@ -136,6 +186,7 @@ def command(
         "scale_bar": scale_bar,
         "height_map": height_map,
         "n_boot": n_boot,
+        "correction": not no_correction,
     }
     d = _result_dict(
         res,
@@ -147,9 +198,37 @@ def command(
         pixel_size=ps,
         settings=settings,
     )
+    if explain_path:
+        from fracto.modes.explain import explain_regions, write_explanation
+
+        expl = explain_regions(
+            model,
+            res.features.X,
+            res.features.tile_grid,
+            res.block_labels,
+            top=explain_top,
+            block_px=res.features.block_px,
+        )
+        meta = {k: d[k] for k in ("image", "model", "seed", "version")}
+        write_explanation(explain_path, expl, meta=meta)
     if overlay:
+        from fracto.modes.regions import paint
+
         fr = {k: v["value"] for k, v in d["fractions"].items()}
-        write_overlay(overlay, img, res.label_map, res.classes, fractions=fr, title=str(image))
+        conf = None
+        if overlay_confidence:
+            conf = paint(res.block_probabilities.max(axis=2), res.features.block_px, img.shape)
+        note = "corrected fractions" if d["correction"].get("applied") else "counted fractions"
+        write_overlay(
+            overlay,
+            img,
+            res.label_map,
+            res.classes,
+            fractions=fr,
+            title=str(image),
+            confidence=conf,
+            fractions_note=note,
+        )
     if labels:
         write_labels(labels, res.label_map, res.classes)
     click.echo(dumps_json(d) if as_json else format_table(d))

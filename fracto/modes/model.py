@@ -29,6 +29,7 @@ import hashlib
 import os
 import platform
 import zipfile
+import zlib
 from pathlib import Path
 from typing import Any
 
@@ -41,6 +42,13 @@ from fracto.modes.features import FEATURE_SET_VERSION
 
 #: Marker stored in every fracto model.
 MODEL_KIND = "fracto.modes.ModeClassifier"
+
+#: Version of what a fitted model holds beyond the estimator (held-out confusion,
+#: feature references); models without it give uncorrected fractions only.
+CONTRACT_VERSION = 1
+
+#: Training percentiles of each feature kept for explanations.
+REFERENCE_PERCENTILES = (5.0, 25.0, 50.0, 75.0, 95.0)
 
 #: Types a fracto model file may hold beyond skops' built-in safe set.
 KNOWN_TYPES: frozenset[str] = frozenset(
@@ -103,6 +111,44 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
     class_weight : "balanced" or None
         Weight regions inversely to their class's frequency (see
         HistGradientBoostingClassifier), so a class seen in few regions still counts.
+    n_importance_repeats : int
+        Permutations per feature for the held-out permutation importance
+        (0: none).
+    max_importance_regions : int
+        Held-out regions per fold used for the permutation importance.
+
+    Attributes
+    ----------
+    boosters_ : list of HistGradientBoostingClassifier
+        One booster per grouped calibration fold, each fitted without its fold.
+    calibrators_ : list or None
+        One-vs-rest calibrators fitted on every out-of-fold decision score.
+    confusion_ : ndarray (k, k) or None
+        Held-out area confusion pooled over images: rows true class, columns
+        predicted (argmax) class, in blocks (see ``confusion_source_``).
+    confusion_per_group_ : ndarray (n_images, k, k) or None
+        The same for each held-out image.
+    confusion_groups_ : list of str
+        Image (group) of each ``confusion_per_group_`` entry.
+    confidence_per_group_ : ndarray (n_images,)
+        Area-weighted mean best probability of each held-out image.
+    feature_reference_ : ndarray (n_features,)
+        Training median of each feature.
+    feature_quantiles_ : ndarray (5, n_features)
+        Training percentiles :data:`REFERENCE_PERCENTILES` of each feature.
+    feature_importance_ : ndarray (n_features,) or None
+        Held-out permutation importance (drop in region accuracy).
+
+    Notes
+    -----
+    Calibration and cross-validation share the folds: booster ``i`` is fitted
+    without fold ``i``; its decision scores on fold ``i`` are out of fold. The
+    model's calibrators are fitted on all out-of-fold scores and the model
+    averages the calibrated boosters (as ``CalibratedClassifierCV`` with
+    ``ensemble=True``, but with a pooled calibrator). For the held-out scores,
+    fold ``i`` is predicted by booster ``i`` with calibrators fitted on the
+    other folds' scores only, so neither part has seen the fold: the
+    confusion matrix costs no extra booster fit.
     """
 
     def __init__(
@@ -121,6 +167,8 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         uses_height: bool = False,
         n_threads: int | None = 1,
         class_weight: str | None = "balanced",
+        n_importance_repeats: int = 2,
+        max_importance_regions: int = 2000,
     ):
         self.classes = classes
         self.threshold = threshold
@@ -135,6 +183,8 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         self.uses_height = uses_height
         self.n_threads = n_threads
         self.class_weight = class_weight
+        self.n_importance_repeats = n_importance_repeats
+        self.max_importance_regions = max_importance_regions
 
     def _base(self):
         from sklearn.ensemble import HistGradientBoostingClassifier
@@ -160,6 +210,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         groups: np.ndarray | None = None,
         *,
         feature_names: list[str] | None = None,
+        score_images=None,
     ) -> ModeClassifier:
         """Fit on region features.
 
@@ -172,14 +223,18 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
             Image of each region; calibration folds never split an image.
         feature_names : list of str, optional
             Column names, kept for explanations and the model card.
+        score_images : sequence of fracto.modes.scoring.HeldOutImage, optional
+            Every tile and the true class area of every block of the training
+            images; the held-out confusion is then scored on whole images
+            (mixed boundary tiles included). Without them it is scored on the
+            labelled training tiles.
         """
         from threadpoolctl import threadpool_limits
 
         with threadpool_limits(limits=self.n_threads):
-            return self._fit(X, y, groups, feature_names)
+            return self._fit(X, y, groups, feature_names, score_images)
 
-    def _fit(self, X, y, groups, feature_names) -> ModeClassifier:
-        from sklearn.calibration import CalibratedClassifierCV
+    def _fit(self, X, y, groups, feature_names, score_images) -> ModeClassifier:
         from sklearn.model_selection import GroupKFold
 
         X = np.asarray(X, dtype=np.float32)
@@ -198,35 +253,183 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         method = self.calibration
         if method not in ("isotonic", "sigmoid", "none"):
             raise FractoInputError("calibration must be 'isotonic', 'sigmoid' or 'none'.")
-        k = min(self.n_calibration_folds, n_groups)
-        if method == "none" or k < 2:
-            est = self._base().fit(X, y)
-        else:
-            cv = [
-                (tr, te)
-                for tr, te in GroupKFold(k).split(X, y, groups)
-                if len(set(y[tr])) == len(present)
-            ]
-            if not cv:
-                est = self._base().fit(X, y)
-            else:
-                est = CalibratedClassifierCV(self._base(), method=method, cv=cv, ensemble=True)
-                est.fit(X, y)
-                est.cv = len(cv)  # keep the file small: the fold indices are not needed
-        self.estimator_ = est
         self.classes_ = np.asarray(present)
         self.n_features_in_ = X.shape[1]
         self.feature_names_ = list(feature_names) if feature_names is not None else None
         self.feature_set_version_ = FEATURE_SET_VERSION
         self.kind_ = MODEL_KIND
+        self.contract_version_ = CONTRACT_VERSION
+        self.feature_reference_ = np.median(X, axis=0).astype(np.float64)
+        self.feature_quantiles_ = np.percentile(X, REFERENCE_PERCENTILES, axis=0).astype(
+            np.float64
+        )
+        self.reference_percentiles_ = [float(v) for v in REFERENCE_PERCENTILES]
+        self.confusion_ = None
+        self.confusion_per_group_ = None
+        self.confusion_groups_ = None
+        self.confidence_per_group_ = None
+        self.confusion_source_ = None
+        self.feature_importance_ = None
+        self.n_cv_folds_ = 0
+        k = min(self.n_calibration_folds, n_groups)
+        folds = []
+        if method != "none" and k >= 2:
+            folds = [
+                (tr, te)
+                for tr, te in GroupKFold(k).split(X, y, groups)
+                if len(set(y[tr])) == len(present)
+            ]
+        if not folds:
+            self.boosters_ = [self._base().fit(X, y)]
+            self.calibrators_ = None
+            return self
+        # one booster per grouped fold; its scores on the held-out fold are out of fold
+        boosters, scores = [], np.zeros((len(y), len(present) if len(present) > 2 else 1))
+        oof = np.zeros(len(y), dtype=bool)
+        fold_of = np.full(len(y), -1)
+        for i, (tr, te) in enumerate(folds):
+            b = self._base().fit(X[tr], y[tr])
+            boosters.append(b)
+            scores[te] = _raw_scores(b, X[te], self.classes_)
+            oof[te] = True
+            fold_of[te] = i
+        self.boosters_ = boosters
+        # the final calibrator sees every out-of-fold score (boosters are exchangeable)
+        self.calibrators_ = _fit_calibrators(scores[oof], y[oof], self.classes_, method)
+        self.n_cv_folds_ = len(folds)
+        # honest held-out probabilities: booster i on fold i, calibrated without fold i
+        cal_wo = [
+            _fit_calibrators(
+                scores[oof & (fold_of != i)], y[oof & (fold_of != i)], self.classes_, method
+            )
+            for i in range(len(folds))
+        ]
+        fold_groups = [set(np.unique(groups[te]).tolist()) for _, te in folds]
+        self._score_held_out(X, y, groups, folds, scores, cal_wo, fold_groups, score_images)
         return self
+
+    # -------------------------------------------------------- held-out scoring
+
+    def _held_out_proba(self, i: int, X: np.ndarray, cal_wo) -> np.ndarray:
+        return _calibrated(self.boosters_[i], cal_wo[i], X, self.classes_)
+
+    def _score_held_out(self, X, y, groups, folds, scores, cal_wo, fold_groups, score_images):
+        nk = len(self.classes_)
+        index = {c: i for i, c in enumerate(self.classes_)}
+        per_group, ids, conf = [], [], []
+        if score_images:
+            # whole held-out images: every tile (mixed boundary tiles too) → blocks → areas
+            from fracto.modes.regions import tiles_to_blocks
+
+            for img in score_images:
+                g = img.group
+                fi = next((i for i, fg in enumerate(fold_groups) if g in fg), None)
+                if fi is None:  # never trained on by any booster: any fold is held out
+                    fi = zlib.crc32(str(g).encode()) % len(folds)
+                truth = np.asarray(img.block_truth, dtype=np.float64)
+                if truth.shape[2] != nk:
+                    truth = _truth_for_classes(truth, self.class_names, self.classes_)
+                if not truth.sum() > 0:
+                    continue
+                p = self._held_out_proba(fi, np.asarray(img.X, np.float32), cal_wo)
+                pb = tiles_to_blocks(p, img.tile_grid)
+                pred = pb.argmax(axis=2)
+                cm = np.zeros((nk, nk))
+                for j in range(nk):
+                    cm[:, j] = truth[pred == j].sum(axis=0)
+                per_group.append(cm)
+                ids.append(str(g))
+                w = truth.sum(axis=2)
+                conf.append(float((pb.max(axis=2) * w).sum() / w.sum()))
+            self.confusion_source_ = (
+                "whole held-out images: every block, area of each true class (in blocks)"
+            )
+        else:
+            # only the labelled training tiles: each tile counts as one region
+            for i, (_, te) in enumerate(folds):
+                p = self._held_out_proba(i, X[te], cal_wo)
+                pred = p.argmax(axis=1)
+                yi = np.array([index[c] for c in y[te]])
+                for g in np.unique(groups[te]):
+                    sel = groups[te] == g
+                    cm = np.zeros((nk, nk))
+                    np.add.at(cm, (yi[sel], pred[sel]), 1.0)
+                    per_group.append(cm)
+                    ids.append(str(g))
+                    conf.append(float(p[sel].max(axis=1).mean()))
+            self.confusion_source_ = "labelled training tiles of held-out images (one per tile)"
+        if per_group:
+            self.confusion_per_group_ = np.stack(per_group)
+            self.confusion_ = self.confusion_per_group_.sum(axis=0)
+            self.confusion_groups_ = ids
+            self.confidence_per_group_ = np.asarray(conf, dtype=np.float64)
+        if self.n_importance_repeats > 0:
+            self.feature_importance_ = self._held_out_importance(X, y, folds, cal_wo)
+
+    def _held_out_importance(self, X, y, folds, cal_wo) -> np.ndarray:
+        """Permutation importance: drop of held-out region accuracy per feature."""
+        from sklearn.inspection import permutation_importance
+
+        rng = np.random.default_rng(self.random_state)
+        out = np.zeros(X.shape[1])
+        for i, (_, te) in enumerate(folds):
+            if te.size > self.max_importance_regions:
+                te = np.sort(rng.choice(te, self.max_importance_regions, replace=False))
+
+            def acc(est, Xs, ys, i=i):
+                p = self._held_out_proba(i, Xs, cal_wo)
+                return float((self.classes_[p.argmax(axis=1)] == ys).mean())
+
+            r = permutation_importance(
+                _NoFit(),
+                X[te],
+                y[te],
+                scoring=acc,
+                n_repeats=self.n_importance_repeats,
+                random_state=self.random_state + i,
+            )
+            out += r.importances_mean * te.size
+        return out / sum(min(te.size, self.max_importance_regions) for _, te in folds)
+
+    def cv_summary(self) -> dict[str, Any]:
+        """The stored held-out confusion as a card-ready dict (None when absent)."""
+        if getattr(self, "confusion_", None) is None:
+            return {}
+        cm = np.asarray(self.confusion_)
+        rows = cm.sum(axis=1)
+        labels = [str(c) for c in self.classes_]
+        recall = {
+            c: float(cm[i, i] / rows[i]) if rows[i] > 0 else None for i, c in enumerate(labels)
+        }
+        return {
+            "scheme": f"{self.n_cv_folds_}-fold grouped by image (the calibration folds)",
+            "scored_model": "calibrated: booster of the fold, calibrator fitted without the fold",
+            "source": self.confusion_source_,
+            "labels": labels,
+            "area_confusion": np.round(cm, 2).tolist(),
+            "area_recall": recall,
+            "area_accuracy": float(np.trace(cm) / cm.sum()) if cm.sum() > 0 else None,
+            "n_images_scored": len(self.confusion_groups_ or []),
+        }
 
     def predict_proba(self, X: np.ndarray) -> np.ndarray:
         """Calibrated probabilities, columns in the order of ``classes_``."""
+        from threadpoolctl import threadpool_limits
+
         X = np.asarray(X, dtype=np.float32)
-        p = self.estimator_.predict_proba(X)
-        order = [list(self.estimator_.classes_).index(c) for c in self.classes_]
-        return p[:, order]
+        with threadpool_limits(limits=self.n_threads):
+            if not hasattr(self, "boosters_"):  # a model written before the contract
+                p = self.estimator_.predict_proba(X)
+                order = [list(self.estimator_.classes_).index(c) for c in self.classes_]
+                return p[:, order]
+            if self.calibrators_ is None:
+                b = self.boosters_[0]
+                order = [list(b.classes_).index(c) for c in self.classes_]
+                return b.predict_proba(X)[:, order]
+            p = np.zeros((len(X), len(self.classes_)))
+            for b in self.boosters_:
+                p += _calibrated(b, self.calibrators_, X, self.classes_)
+            return p / len(self.boosters_)
 
     def predict(self, X: np.ndarray, *, threshold: float | None = None) -> np.ndarray:
         """Class names, ``"unclassified"`` where the best probability is under the threshold."""
@@ -241,6 +444,63 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
     def predict_best(self, X: np.ndarray) -> np.ndarray:
         """Most probable class, with no threshold (for scores)."""
         return self.classes_[self.predict_proba(X).argmax(axis=1)]
+
+
+class _NoFit:
+    """Stand-in estimator for permutation_importance with a callable scorer."""
+
+    def fit(self, *a, **k):  # pragma: no cover - never refitted
+        return self
+
+
+def _raw_scores(booster, X: np.ndarray, classes: np.ndarray) -> np.ndarray:
+    """Decision scores in the order of `classes` (one column for two classes)."""
+    s = booster.decision_function(X)
+    if s.ndim == 1:
+        return s.reshape(-1, 1) if list(booster.classes_) == list(classes) else -s.reshape(-1, 1)
+    order = [list(booster.classes_).index(c) for c in classes]
+    return s[:, order]
+
+
+def _fit_calibrators(scores: np.ndarray, y: np.ndarray, classes: np.ndarray, method: str):
+    """One-vs-rest calibrators of the decision scores (as CalibratedClassifierCV).
+
+    References
+    ----------
+    Zadrozny & Elkan (2002) for isotonic, Platt (1999) for sigmoid; the
+    one-vs-rest layout and normalisation follow sklearn.calibration.
+    """
+    from sklearn.calibration import _SigmoidCalibration
+    from sklearn.isotonic import IsotonicRegression
+
+    out = []
+    cols = [classes[1]] if scores.shape[1] == 1 else list(classes)
+    for j, c in enumerate(cols):
+        t = (y == c).astype(np.float64)
+        if method == "isotonic":
+            cal = IsotonicRegression(out_of_bounds="clip").fit(scores[:, j], t)
+        else:
+            cal = _SigmoidCalibration().fit(scores[:, j], t)
+        out.append(cal)
+    return out
+
+
+def _calibrated(booster, calibrators, X: np.ndarray, classes: np.ndarray) -> np.ndarray:
+    """Calibrated, normalised probabilities of one booster."""
+    s = _raw_scores(booster, X, classes)
+    k = len(classes)
+    if s.shape[1] == 1:
+        p1 = np.clip(calibrators[0].predict(s[:, 0]), 0.0, 1.0)
+        return np.column_stack([1.0 - p1, p1])
+    p = np.column_stack([cal.predict(s[:, j]) for j, cal in enumerate(calibrators)])
+    den = p.sum(axis=1, keepdims=True)
+    return np.divide(p, den, out=np.full_like(p, 1.0 / k), where=den > 0)
+
+
+def _truth_for_classes(truth: np.ndarray, names, present) -> np.ndarray:
+    """Keep the truth columns of the classes the model learned (by name order)."""
+    idx = [list(names).index(c) for c in present]
+    return truth[..., idx]
 
 
 # ---------------------------------------------------------------- files
@@ -261,7 +521,7 @@ def save_model(model: ModeClassifier, path: str | os.PathLike) -> str:
 
     from fracto.io.safe import write_bytes_atomic
 
-    if not hasattr(model, "estimator_"):
+    if not hasattr(model, "classes_"):
         raise FractoInputError("The model has not been trained yet.")
     write_bytes_atomic(path, sio.dumps(model))
     return sha256_of(path)
@@ -366,6 +626,16 @@ def library_versions() -> dict[str, str]:
     }
 
 
+def model_importance(model: ModeClassifier, top: int | None = 25) -> dict[str, float]:
+    """The model's held-out permutation importance, largest first (empty when absent)."""
+    imp = getattr(model, "feature_importance_", None)
+    names = getattr(model, "feature_names_", None)
+    if imp is None or not names:
+        return {}
+    ranked = sorted(zip(names, (float(v) for v in imp), strict=True), key=lambda kv: -kv[1])
+    return dict(ranked[:top] if top else ranked)
+
+
 def card_path_for(model_path: str | os.PathLike) -> Path:
     """Model card path beside a model: ``name.skops`` -> ``name.card.json``."""
     p = Path(model_path)
@@ -396,6 +666,8 @@ def write_model_card(
 
     desc = {**FEATURE_DESCRIPTIONS, **HEIGHT_FEATURE_DESCRIPTIONS}
     names = model.feature_names_ or []
+    if not importance:
+        importance = model_importance(model)
     card = {
         "kind": MODEL_KIND,
         "model_file": Path(model_path).name,
@@ -406,6 +678,7 @@ def write_model_card(
         "settings": {k: v for k, v in model.get_params().items() if k != "classes"},
         "training_data": training,
         "cross_validation": scores or {},
+        "held_out_area_confusion": model.cv_summary() if hasattr(model, "cv_summary") else {},
         "feature_importance": importance or {},
         "created_utc": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "library_versions": library_versions(),

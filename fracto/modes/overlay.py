@@ -57,6 +57,8 @@ def overlay_png(
     alpha: float = 0.4,
     title: str | None = None,
     max_side_px: int = 1600,
+    confidence: np.ndarray | None = None,
+    fractions_note: str | None = None,
 ) -> bytes:
     """PNG bytes of the grey image with translucent mode colours and a legend.
 
@@ -74,6 +76,12 @@ def overlay_png(
     title : str, optional
     max_side_px : int
         Longest side of the picture (the image is decimated for display only).
+    confidence : ndarray, optional
+        Probability of each pixel's label (image grid). The colour opacity then
+        grows with it, from a faint tint at chance level to `alpha` + 0.3 at
+        certainty, and the legend shows three levels.
+    fractions_note : str, optional
+        Legend subtitle for the fractions (e.g. "corrected fractions").
     """
     import matplotlib
 
@@ -87,6 +95,13 @@ def overlay_png(
     lab = np.asarray(label_map)
     step = max(1, int(np.ceil(max(img.shape) / max_side_px)))
     img, lab = img[::step, ::step], lab[::step, ::step]
+    k = max(1, len(classes))
+    if confidence is not None:
+        conf = np.asarray(confidence, dtype=np.float64)[::step, ::step]
+        strength = np.clip((conf - 1.0 / k) / (1.0 - 1.0 / k), 0.0, 1.0)
+        a_map = (0.08 + (alpha + 0.3 - 0.08) * strength)[..., None]
+    else:
+        a_map = None
     finite = np.isfinite(img)
     lo, hi = np.percentile(img[finite], [1, 99]) if finite.any() else (0.0, 1.0)
     grey = np.clip((img - lo) / max(hi - lo, 1e-12), 0, 1)
@@ -95,7 +110,8 @@ def overlay_png(
     for i, c in enumerate(classes, start=1):
         sel = lab == i
         if sel.any():
-            rgb[sel] = (1 - alpha) * rgb[sel] + alpha * np.asarray(to_rgb(cols[c]))
+            a = alpha if a_map is None else a_map[sel]
+            rgb[sel] = (1 - a) * rgb[sel] + a * np.asarray(to_rgb(cols[c]))
     ny, nx = grey.shape
     dpi = 100
     fig = Figure(figsize=(nx / dpi + 2.6, max(ny / dpi, 2.0) + 0.4), dpi=dpi)
@@ -111,7 +127,17 @@ def overlay_png(
     handles.append(
         Patch(facecolor="#bbbbbb", edgecolor="black", hatch="//", label=f"{UNCLASSIFIED}{share}")
     )
-    fig.legend(handles=handles, loc="center right", frameon=False, fontsize=9, title="mode")
+    if a_map is not None:
+        grey = np.array([0.6, 0.6, 0.6])
+        for level in (0.5, 0.75, 1.0):
+            st = float(np.clip((level - 1.0 / k) / (1.0 - 1.0 / k), 0.0, 1.0))
+            a = 0.08 + (alpha + 0.3 - 0.08) * st
+            face = (1 - a) * grey + a * np.asarray(to_rgb(PALETTE[0]))
+            handles.append(
+                Patch(facecolor=face, edgecolor="black", label=f"confidence {level:.2f}")
+            )
+    legend_title = "mode" if not fractions_note else f"mode ({fractions_note})"
+    fig.legend(handles=handles, loc="center right", frameon=False, fontsize=9, title=legend_title)
     if title:
         fig.suptitle(title, fontsize=9)
     buf = io.BytesIO()

@@ -8,6 +8,7 @@ import numpy as np
 
 from fracto.classes import UNCLASSIFIED
 from fracto.errors import FractoInputError
+from fracto.modes.correction import ErrorRates, corrected_fractions
 from fracto.modes.features import RegionFeatures, region_features
 from fracto.modes.fractions import (
     FractionEstimate,
@@ -17,6 +18,9 @@ from fracto.modes.fractions import (
 from fracto.modes.model import ModeClassifier
 from fracto.modes.quality import ImageQuality, assess_quality
 from fracto.modes.regions import block_labels, paint, tiles_to_blocks
+
+#: Default choice of training images for the error-rate resampling.
+CONDITIONING: str | None = None
 
 
 @dataclass(frozen=True)
@@ -35,12 +39,21 @@ class ModeResult:
     block_labels : ndarray of int, shape (rows, cols)
         Class index per block, -1 = unclassified.
     fractions : FractionEstimate
-        Area fractions (classes then ``unclassified``) with 95 % intervals.
+        Area fractions (classes then ``unclassified``) with 95 % intervals:
+        corrected for the model's held-out errors when ``correction["applied"]``
+        (the corrected unclassified share is 0), else as counted.
     features : RegionFeatures
         Region features (kept for explanations).
     quality : ImageQuality
     threshold : float
     seed : int
+    settings : dict
+    fractions_uncorrected : FractionEstimate or None
+        The counted fractions (threshold applied, unclassified kept) with their
+        block-bootstrap interval.
+    correction : dict
+        ``applied`` and, when applied, the method, the error rates used and the
+        uncorrected unclassified share; else the reason it was not applied.
     """
 
     classes: tuple[str, ...]
@@ -53,10 +66,15 @@ class ModeResult:
     threshold: float
     seed: int
     settings: dict = field(default_factory=dict)
+    fractions_uncorrected: FractionEstimate | None = None
+    correction: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
+        unc = self.fractions_uncorrected or self.fractions
         return {
             "fractions": self.fractions.to_dict(),
+            "fractions_uncorrected": unc.to_dict(),
+            "correction": self.correction,
             "classes": list(self.classes),
             "quality": self.quality.to_dict(),
             "scale": self.features.scale.to_dict(),
@@ -81,6 +99,8 @@ def classify_image(
     seed: int = 0,
     n_boot: int = 1000,
     block_regions: int | None = None,
+    correction: bool = True,
+    conditioning: str | None = CONDITIONING,
 ) -> ModeResult:
     """Classify the regions of an SEM fractograph and estimate mode fractions.
 
@@ -102,6 +122,12 @@ def classify_image(
         Bootstrap replicates.
     block_regions : int or None
         Bootstrap block side in regions.
+    correction : bool
+        Correct the fractions for the model's held-out errors (adjusted
+        classify and count) when the model holds its held-out confusion.
+    conditioning : {None, "confidence"}
+        How the training images whose error rates are resampled are chosen
+        (see :func:`fracto.modes.correction.corrected_fractions`).
 
     Returns
     -------
@@ -109,7 +135,8 @@ def classify_image(
 
     References
     ----------
-    Künsch (1989) for the interval; see fracto.modes.fractions.
+    Künsch (1989) for the interval, see fracto.modes.fractions; Forman (2008)
+    for the correction, see fracto.modes.correction.
     """
     img = np.asarray(image, dtype=np.float64)
     if img.ndim != 2:
@@ -131,14 +158,43 @@ def classify_image(
     labels = block_labels(p_blocks, thr)
     classes = tuple(str(c) for c in model.classes_)
     names = (*classes, UNCLASSIFIED)
-    fractions = block_bootstrap_fractions(
+    weights = feats.block_weights()
+    counted = block_bootstrap_fractions(
         memberships_from_labels(labels, len(classes)),
-        feats.block_weights(),
+        weights,
         names,
         block_regions=block_regions,
         n_boot=n_boot,
         seed=seed,
     )
+    fractions, info = counted, {"applied": False}
+    rates = ErrorRates.from_model(model) if correction else None
+    if not correction:
+        info["reason"] = "switched off (--no-correction)"
+    elif rates is None:
+        info["reason"] = (
+            "the model holds no held-out confusion (made by an older fracto); "
+            "retrain it to correct the fractions"
+        )
+    else:
+        best = p_blocks.argmax(axis=2)
+        conf = float((p_blocks.max(axis=2) * weights).sum() / weights.sum())
+        fractions, details = corrected_fractions(
+            best,
+            weights,
+            names,
+            rates,
+            conditioning=conditioning,
+            image_confidence=conf,
+            block_regions=counted.block_regions,
+            n_boot=n_boot,
+            seed=seed,
+        )
+        info = {
+            "applied": True,
+            **details,
+            "unclassified_uncorrected": float(counted.value[-1]),
+        }
     label_map = paint((labels + 1).astype(np.uint8), feats.block_px, img.shape)
     return ModeResult(
         classes=classes,
@@ -150,5 +206,12 @@ def classify_image(
         quality=quality,
         threshold=thr,
         seed=seed,
-        settings={"n_boot": n_boot, "block_regions": fractions.block_regions},
+        settings={
+            "n_boot": n_boot,
+            "block_regions": fractions.block_regions,
+            "correction": bool(info["applied"]),
+            "conditioning": conditioning,
+        },
+        fractions_uncorrected=counted,
+        correction=info,
     )

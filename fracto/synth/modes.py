@@ -7,23 +7,25 @@ practice of fractography (ASM Handbook Vol. 12, *Fractography*, 1987):
 * **intergranular** — the crack runs over the boundary faces of the grain:
   the grain either stays on this half (its top faces show, a polyhedral
   "rock-candy" cap) or is pulled out (its bottom faces show, a faceted
-  socket). Faces are exact planes of the power tessellation, so facets are
-  flat, triple-junction ridges sharp. A few boundaries open as secondary
-  cracks (narrow deep grooves).
+  socket). Faces are planes of the power tessellation, bent gently as a
+  whole (a dome over each grain section: caps bulge out, sockets hollow in),
+  triple-junction ridges sharp. A few boundaries open as secondary cracks
+  (narrow deep grooves).
 * **transgranular cleavage** — one plane per grain from a cleavage plane family
   (``{100}`` by default) turned by the grain's orientation, the member
   closest to the crack plane taken; a step at every grain boundary because
-  the plane changes; river lines that start fine at the boundary where the
-  crack enters and merge downstream (see :func:`river_steps`); occasional
-  larger cleavage steps.
+  the plane changes; dense river lines that start fine at the boundary where
+  the crack enters, fan in and merge downstream (see :func:`river_steps`);
+  occasional larger cleavage steps; faint conchoidal ripples and chipped
+  terraces on some facets.
 * **ductile** — microvoid coalescence: paraboloidal cups around random
   nucleation sites of a lognormal size distribution; where neighbouring cups
   meet, the lower envelope leaves sharp tear ridges; shear stretches the
   cups along the shear direction and tilts their floors; some cups hold a
   particle at the bottom.
-* **fatigue** — fine parallel striations (one per load cycle) of a chosen
-  spacing, normal to the local direction of crack travel, on gently tilted,
-  undulating plateaus.
+* **fatigue** — fine striations (one per load cycle) of a chosen spacing:
+  arcs about a distant crack origin, normal to the local direction of crack
+  travel, on plateaus tilted by at most 1°.
 """
 
 from __future__ import annotations
@@ -69,8 +71,8 @@ class FractureSettings:
         Cleavage plane family of the crystals.
     river_spacing : float
         Spacing of the fine river lines where they start, as a factor of
-        sqrt(grain size × 1 µm) (µm): 0.2 gives 0.45 µm on 5 µm grains and
-        0.75 µm on 14 µm grains.
+        sqrt(grain size × 1 µm) (µm): 0.12 gives 0.27 µm on 5 µm grains and
+        0.45 µm on 14 µm grains.
     river_step_um : float or None
         Height of one river step (default 0.1 × the local line spacing).
     river_merge : int
@@ -82,6 +84,16 @@ class FractureSettings:
     cleavage_curvature : float
         RMS bending of cleavage facets (height change at the grain edge over
         half a grain size); 0 keeps them exactly planar.
+    ripple_fraction : float
+        Share of cleavage facets with faint conchoidal ripples.
+    ripple_height : float
+        Amplitude of the ripples, in grain sizes.
+    terrace_fraction : float
+        Share of cleavage facets with a chipped side (a staircase of small
+        terraces, steps of about 3 % of the grain size).
+    boundary_curvature : float
+        Bending of intergranular faces: rise of the dome over a grain section
+        (cap outwards, socket inwards) in grain sizes, scattered ±70 % per grain.
     secondary_crack_probability : float
         Share of intergranular grain boundaries that open as secondary cracks.
     pullout_bias : float
@@ -107,6 +119,12 @@ class FractureSettings:
         Number density of small loose fragments lying on the surface.
     debris_um : float
         Mean diameter of the fragments.
+    fragment_clusters : float
+        Clusters of small flakes per grain-section area (d²) of the field.
+    fragments_per_cluster : float
+        Mean number of flakes in a cluster.
+    fragment_um : float or None
+        Median diameter of a flake in a cluster (default 0.06 × grain size).
     edge_rounding_um : float
         σ of a Gaussian smoothing of the final map: edges and steps are
         rounded over about this length, as real ones are (0 = sharp).
@@ -115,11 +133,15 @@ class FractureSettings:
     crack_roughness: float = 0.45
     crack_direction_deg: float | None = None
     cleavage_family: str = "100"
-    river_spacing: float = 0.2
+    river_spacing: float = 0.12
     river_step_um: float | None = None
     river_merge: int = 3
-    river_fraction: float = 0.7
+    river_fraction: float = 0.85
     cleavage_step_um: float | None = None
+    ripple_fraction: float = 0.5
+    ripple_height: float = 0.006
+    terrace_fraction: float = 0.35
+    boundary_curvature: float = 0.08
     secondary_crack_probability: float = 0.05
     cleavage_curvature: float = 0.06
     pullout_bias: float = 1.0
@@ -134,6 +156,9 @@ class FractureSettings:
     edge_rounding_um: float = 0.1
     debris_per_um2: float = 0.003
     debris_um: float = 0.25
+    fragment_clusters: float = 0.12
+    fragments_per_cluster: float = 60.0
+    fragment_um: float | None = None
 
     def __post_init__(self) -> None:
         if self.cleavage_family not in CLEAVAGE_FAMILIES:
@@ -200,8 +225,8 @@ def river_steps(
         steps); downstream it becomes a staircase, so ``merge`` fine steps
         crowd into one cliff — tributaries joining into a river.
     """
-    # the lines fan in towards the exit side: spacing shrinks by up to 60 %
-    lines = v / (spacing_um * (1.0 - 0.6 * np.clip(u, 0.0, 1.0))) + wobble
+    # the lines fan in towards the exit side: spacing shrinks by up to 75 %
+    lines = v / (spacing_um * (1.0 - 0.75 * np.clip(u, 0.0, 1.0))) + wobble
     c = lines / merge
     fl = np.floor(c)
     t = c - fl

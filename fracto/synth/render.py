@@ -18,7 +18,9 @@ The signal at each pixel is built from the local surface geometry:
    ``valley_radius_um``) minus the height, an ambient-occlusion-like depth;
 5. a slow **shading** gain across the field (``shading_variation``), beam
    **blur** (Gaussian, σ = ``blur_um``), **shot noise** (Poisson counts at
-   ``dose`` electrons per pixel for signal 1), scan-line jitter, then the
+   ``dose`` electrons per pixel for signal 1), scan-line jitter, scan-line
+   noise (a multiplicative gain noise of RMS ``scan_noise`` correlated along
+   the rows over ``scan_noise_px`` pixels), then the
    amplifier: optional automatic levels, ``contrast``, ``brightness``,
    ``gamma``; quantisation to 8 or 16 bits, an optional JPEG round trip and an
    optional information banner (appended below the image).
@@ -73,6 +75,8 @@ class RenderSettings:
     blur_um: float = 0.05
     dose: float | None = 300.0
     line_jitter: float = 0.01
+    scan_noise: float = 0.0
+    scan_noise_px: float = 2.0
     auto_level: bool = True
     median_level: float = 0.32
     brightness: float = 0.0
@@ -95,6 +99,8 @@ class RenderSettings:
             raise FractoInputError(
                 "The base yield and gamma must be positive and the secant cap at least 1."
             )
+        if not (self.scan_noise >= 0 and self.scan_noise_px >= 0):
+            raise FractoInputError("The scan-line noise and its length must not be negative.")
         if self.dose is not None and not self.dose > 0:
             raise FractoInputError("The electron dose must be positive (or None for no noise).")
 
@@ -113,6 +119,7 @@ class RenderSettings:
             blur_um=0.0,
             dose=None,
             line_jitter=0.0,
+            scan_noise=0.0,
             auto_level=False,
             brightness=0.0,
             contrast=1.0,
@@ -132,7 +139,7 @@ class RenderSettings:
             edge_sigma_um=float(rng.uniform(0.03, 0.12)),
             edge_glow_gain=float(rng.uniform(0.1, 1.0)),
             edge_glow_um=float(rng.uniform(0.1, 0.6)),
-            detector_strength=float(rng.uniform(0.0, 0.6)),
+            detector_strength=float(rng.uniform(0.2, 1.2)),
             detector_azimuth_deg=float(rng.uniform(0.0, 360.0)),
             detector_elevation_deg=float(rng.uniform(15.0, 60.0)),
             detector_shadow=float(rng.uniform(0.0, 0.7)),
@@ -144,6 +151,8 @@ class RenderSettings:
             blur_um=float(rng.uniform(0.0, 0.1)),
             dose=float(rng.uniform(10.0, 200.0)) if rng.uniform() < 0.9 else None,
             line_jitter=float(rng.uniform(0.0, 0.03)),
+            scan_noise=float(rng.uniform(0.0, 0.12)) if rng.uniform() < 0.6 else 0.0,
+            scan_noise_px=float(rng.uniform(1.0, 4.0)),
             auto_level=bool(rng.uniform() < 0.8),
             median_level=float(rng.uniform(0.22, 0.5)),
             brightness=float(rng.uniform(-0.1, 0.1)),
@@ -346,6 +355,15 @@ def render_sem(
 
     if s.line_jitter > 0:
         signal *= (1.0 + s.line_jitter * rng.standard_normal(signal.shape[0]))[:, None]
+
+    if s.scan_noise > 0:
+        # scan-line noise: gain fluctuations of the beam and amplifier along the fast
+        # scan direction (rows), correlated over scan_noise_px pixels, unit RMS
+        wn = rng.standard_normal(signal.shape)
+        if s.scan_noise_px > 0:
+            wn = ndimage.gaussian_filter1d(wn, s.scan_noise_px, axis=1)
+            wn /= math.sqrt(1.0 / (2.0 * math.sqrt(math.pi) * s.scan_noise_px))
+        signal *= np.maximum(1.0 + s.scan_noise * wn, 0.0)
 
     if s.dose is not None:
         lam = np.maximum(signal, 0.0) * s.dose

@@ -33,6 +33,7 @@ from fracto.classes import CLASSES, MODES
 from fracto.errors import FractoInputError
 from fracto.io.safe import write_bytes_atomic, write_json_atomic
 from fracto.synth.fields import gaussian_correlated_field
+from fracto.synth.fragments import fragment_sites, place_fragments
 from fracto.synth.mode_model import ModeModel
 from fracto.synth.modes import (
     FractureSettings,
@@ -53,7 +54,7 @@ from fracto.synth.render import RenderSettings, banner_rows, render_sem
 __all__ = ["GENERATOR_VERSION", "SyntheticSurface", "make_surface", "write_height_tif"]
 
 #: Version of the generator's algorithms; changes when the same seed would give other images.
-GENERATOR_VERSION = "1"
+GENERATOR_VERSION = "2"
 
 
 def write_height_tif(path: str | os.PathLike, height_um: np.ndarray, pixel_size_um: float) -> None:
@@ -248,6 +249,16 @@ def _smooth_noise(
     )
 
 
+def _section_distance(gid: np.ndarray) -> np.ndarray:
+    """Distance (pixels) of every pixel to the outline of its grain section."""
+    edge = np.zeros(gid.shape, bool)
+    edge[:, 1:] |= gid[:, 1:] != gid[:, :-1]
+    edge[:, :-1] |= gid[:, 1:] != gid[:, :-1]
+    edge[1:] |= gid[1:] != gid[:-1]
+    edge[:-1] |= gid[1:] != gid[:-1]
+    return cv2.distanceTransform((~edge).astype(np.uint8), cv2.DIST_L2, 5).astype(np.float64)
+
+
 def make_surface(
     *,
     size: int | tuple[int, int] = 1024,
@@ -318,7 +329,7 @@ def make_surface(
     if not (0.25 * px <= gs.mean_um or gs.kind == "bimodal"):
         raise FractoInputError("The grains are smaller than the pixels; use a larger grain size.")
 
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(14)]
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(16)]
     d_nom = gs.nominal_um
     extent = (ny * px, nx * px)
 
@@ -429,6 +440,14 @@ def make_surface(
             nb_all[act] = np.where(st[act], ft2, fb2)
             active = act
         h[pix] = zcur
+        # real boundary faces are not flat: each whole grain face set bends gently,
+        # a cap bulging out, a socket hollowed in (a dome over the grain section,
+        # zero at its outline, from the distance to the section boundary)
+        dist = _section_distance(gid)
+        dmax = np.asarray(ndimage.maximum(dist, gid, idx))
+        t = dist.ravel()[pix] / np.maximum(dmax[g[pix]], 1.0)
+        kappa = fs.boundary_curvature * rng.uniform(0.3, 1.7, n_g)
+        h[pix] += (sgn * kappa[g[pix]] * size_um[g[pix]]) * t * (2.0 - t)
 
     # transgranular cleavage
     sel = pmode == 1
@@ -495,7 +514,20 @@ def make_surface(
         kappa = fs.cleavage_curvature * rng.standard_normal((n_g, 2))[gs_]
         half = 0.5 * np.maximum(size_um[gs_], px)
         bend = kappa[:, 0] * (u / half) ** 2 + kappa[:, 1] * (v / half) ** 2
-        zz = plane + relief + bend * half
+        # faint conchoidal ripples: arcs about a point upstream of the entry edge
+        rip_on = (rng.uniform(size=n_g) < fs.ripple_fraction)[gs_]
+        rip_amp = fs.ripple_height * size_um[gs_] * rng.uniform(0.3, 1.0, n_g)[gs_]
+        rip_len = np.maximum(0.22 * size_um[gs_], 4.0 * px)
+        r_up = np.hypot(u - umin + half, v)
+        ripple = np.where(rip_on, rip_amp * np.sin(2 * math.pi * r_up / rip_len + 2.0 * wob), 0)
+        # chipped terraces: a staircase of small steps cutting off a side of the facet
+        chip_on = (rng.uniform(size=n_g) < fs.terrace_fraction)[gs_]
+        beta = rng.uniform(0, 2 * math.pi, n_g)
+        w = (du * np.cos(beta)[gs_] + dv * np.sin(beta)[gs_]) / half
+        w0 = rng.uniform(0.2, 0.7, n_g)[gs_]
+        n_steps = np.floor(np.maximum(w - w0 + 0.15 * streak, 0.0) / 0.18) * chip_on
+        terrace = -n_steps * (0.03 * size_um[gs_]) * rng.uniform(0.5, 1.5, n_g)[gs_]
+        zz = plane + relief + bend * half + ripple + terrace
         h[sel] = np.clip(zz, z_bot[sel] + 0.01 * px, z_top[sel] - 0.01 * px)
 
     # ductile
@@ -513,11 +545,20 @@ def make_surface(
             if fs.crack_direction_deg is not None
             else float(streams[5].uniform(0, 2 * math.pi))
         )
-        ang = travel + np.radians(12.0) * rng.standard_normal(n_g)
-        ca, sa = np.cos(ang)[gs_], np.sin(ang)[gs_]
-        along = x[sel] * ca + y[sel] * sa
+        # striations are arcs concentric about a distant crack origin behind the
+        # field (the crack front's curvature): the phase is the distance from it,
+        # so the spacing along the local growth direction is exactly the nominal one
+        ca, sa = math.cos(travel), math.sin(travel)
+        r0 = 4.0 * math.hypot(*extent)
+        lateral = 0.05 * r0 * float(streams[12].uniform(-1.0, 1.0))
+        ox = 0.5 * extent[1] - r0 * ca - lateral * sa
+        oy = 0.5 * extent[0] - r0 * sa + lateral * ca
+        along = np.hypot(x[sel] - ox, y[sel] - oy)
+        # weak wobble: a tenth of a spacing, and a phase jump at each grain boundary
         wob = _smooth_noise((ny, nx), px, 1.5 * d_nom, streams[8]).ravel()[sel]
-        tilt = np.radians(4.0) * rng.standard_normal((n_g, 2))
+        jump = rng.uniform(size=n_g)[gs_]
+        # plateaus tilted by at most 1° per grain
+        tilt = np.radians(1.0) * rng.uniform(-1.0, 1.0, (n_g, 2)) / math.sqrt(2.0)
         plateau = np.tan(tilt[gs_, 0]) * (x[sel] - (cx[gs_] + 0.5) * px) + np.tan(tilt[gs_, 1]) * (
             y[sel] - (cy[gs_] + 0.5) * px
         )
@@ -526,7 +567,7 @@ def make_surface(
             + plateau
             + striations(
                 along,
-                0.8 * fs.striation_spacing_um * wob,
+                fs.striation_spacing_um * (0.1 * wob + jump),
                 fs.striation_spacing_um,
                 fs.striation_height_um,
             )
@@ -558,28 +599,26 @@ def make_surface(
             depth = 0.35 * d_nom
             height = np.where(opened, height - depth, height)
 
-    if fs.debris_per_um2 > 0:
-        # loose fragments: small faceted bumps (half-octahedra) at random sites
+    if fs.debris_per_um2 > 0 or fs.fragment_clusters > 0:
+        # loose fragments: isolated debris and clusters of small flakes
         drng = streams[10]
-        nd = int(drng.poisson(fs.debris_per_um2 * extent[0] * extent[1]))
-        if nd:
-            r_um = 0.5 * fs.debris_um * np.exp(0.4 * drng.standard_normal(nd))
-            cy_d = drng.uniform(0, ny, nd)
-            cx_d = drng.uniform(0, nx, nd)
-            for k in range(nd):
-                rp = r_um[k] / px
-                i0, i1 = int(max(cy_d[k] - rp - 1, 0)), int(min(cy_d[k] + rp + 2, ny))
-                j0, j1 = int(max(cx_d[k] - rp - 1, 0)), int(min(cx_d[k] + rp + 2, nx))
-                if i1 <= i0 or j1 <= j0:
-                    continue
-                sub_y, sub_x = np.mgrid[i0:i1, j0:j1]
-                dist1 = np.abs(sub_y + 0.5 - cy_d[k]) + np.abs(sub_x + 0.5 - cx_d[k])
-                bump = np.maximum(rp - dist1, 0.0) * px * 1.2
-                base = height[i0:i1, j0:j1]
-                top = base.max() if bump.max() > 0 else 0.0
-                height[i0:i1, j0:j1] = np.where(
-                    bump > 0, np.maximum(base, top + bump - bump.max() * 0.3), base
-                )
+        frag_um = fs.fragment_um if fs.fragment_um is not None else 0.12 * d_nom
+        sites, radii, clustered = fragment_sites(
+            (ny, nx),
+            drng,
+            n_single=fs.debris_per_um2 * extent[0] * extent[1],
+            n_clusters=fs.fragment_clusters * extent[0] * extent[1] / d_nom**2,
+            per_cluster=fs.fragments_per_cluster,
+            single_radius_px=0.5 * fs.debris_um / px,
+            cluster_radius_px=0.6 * d_nom / px,
+            fragment_radius_px=0.5 * frag_um / px,
+        )
+        # clusters of flakes come from brittle fracture: only on intergranular and
+        # cleavage grains (isolated debris lies anywhere)
+        si = np.clip(sites[:, 0].astype(int), 0, ny - 1)
+        sj = np.clip(sites[:, 1].astype(int), 0, nx - 1)
+        keep = ~clustered | (labels[si, sj] <= 2)
+        height = place_fragments(height, px, sites[keep], radii[keep], drng)
 
     if fs.edge_rounding_um > 0:
         # at least one pixel, so steps along oblique boundaries do not alias into dots
