@@ -9,9 +9,15 @@ under strong domain randomisation — renderer settings from
 :meth:`fracto.synth.RenderSettings.random` (detector geometry, edge and
 shadow contrast, dose noise, brightness, contrast, gamma, bit depth, JPEG
 compression), grain sizes from about 5 to 150 pixels (log-uniform), random
-mixtures of one to four modes — extracts region features, scores the model
-by grouped cross-validation (by field), fits it on every field, and writes
-``fracto-default.skops`` with ``fracto-default.card.json`` beside it.
+mixtures of one to four modes, pixel sizes from 0.07 to 0.14 µm (log-uniform,
+so the generator's physical lengths such as river-line and striation spacings
+vary against the grain size) — extracts region features, scores the model by
+grouped cross-validation (by field), fits it on every field, and writes
+``fracto-default.skops`` with ``fracto-default.card.json`` beside it, and
+``fracto-default.regions.npz``: a seeded random subset (at most
+:data:`MAX_SAVED_REGIONS`) of the training regions (keys ``X``, ``y``,
+``groups``, ``feature_names``, ``classes``, ``feature_set_version``) from which
+the model can later be adapted without regenerating the synthetic fields.
 
 The default model is scale-free (``scale_um=None``): its filter scales follow
 each image's own texture scale, because a physical scale says nothing about
@@ -36,6 +42,10 @@ from fracto.classes import MODES
 TRAIN_SEED_BASE = 10_000
 #: Range of mean grain sizes in pixels for training fields.
 GRAIN_PX_RANGE = (5.0, 150.0)
+#: Range of pixel sizes in µm for training fields (drawn log-uniform).
+PIXEL_UM_RANGE = (0.07, 0.14)
+#: Most training regions kept in fracto-default.regions.npz.
+MAX_SAVED_REGIONS = 10_000
 
 
 def random_modes(rng: np.random.Generator) -> dict[str, float]:
@@ -97,6 +107,7 @@ def synthetic_field(
         "truth_fractions": surf.truth.get("fractions"),
         "jpeg_quality": rs.jpeg_quality,
         "dose": rs.dose,
+        "pixel_size_um": pixel_size_um,
     }
     return sem, np.asarray(surf.labels, dtype=np.uint8), meta
 
@@ -104,11 +115,51 @@ def synthetic_field(
 def training_fields(
     n_fields: int, *, seed: int = 0, size: int = 512
 ) -> Iterator[tuple[np.ndarray, np.ndarray, str]]:
-    """Yield (image, labels, name) for the default model's training fields."""
+    """Yield (image, labels, name) for the default model's training fields.
+
+    Field ``i`` has seed ``TRAIN_SEED_BASE + 1000 seed + i``; its pixel size is
+    drawn log-uniform from :data:`PIXEL_UM_RANGE` by a generator seeded with
+    ``(field seed, 1)``, apart from the draws inside :func:`synthetic_field`.
+    """
     for i in range(n_fields):
         s = TRAIN_SEED_BASE + 1000 * seed + i
-        img, lab, meta = synthetic_field(s, size=size)
-        yield img, lab, f"synth-seed{s}-grain{meta['grain_px']:.1f}px"
+        px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+        img, lab, meta = synthetic_field(s, size=size, pixel_size_um=px)
+        yield img, lab, f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+
+
+def save_regions(
+    path: str | Path, ts, classes, *, max_regions: int = MAX_SAVED_REGIONS, seed: int = 0
+) -> int:
+    """Write a seeded random subset of the training regions as a compressed ``.npz``.
+
+    Keys: ``X`` (float32), ``y`` (class names), ``groups`` (field index),
+    ``feature_names``, ``classes``, ``feature_set_version``; all plain arrays
+    (loadable with ``numpy.load(path)``, no pickle). Written to a temporary name
+    and renamed.
+
+    Returns
+    -------
+    int
+        Number of regions written.
+    """
+    from fracto.io.safe import atomic_write
+    from fracto.modes.features import FEATURE_SET_VERSION
+
+    n = len(ts.y)
+    rng = np.random.default_rng(seed)
+    keep = np.sort(rng.choice(n, size=min(n, max_regions), replace=False))
+    with atomic_write(path, "wb") as fh:
+        np.savez_compressed(
+            fh,
+            X=np.asarray(ts.X[keep], np.float32),
+            y=np.asarray(ts.y[keep]).astype(str),
+            groups=np.asarray(ts.groups[keep], np.int64),
+            feature_names=np.asarray(ts.names, dtype=str),
+            classes=np.asarray(list(classes), dtype=str),
+            feature_set_version=np.asarray(FEATURE_SET_VERSION),
+        )
+    return int(keep.size)
 
 
 def build_default_model(
@@ -149,6 +200,8 @@ def build_default_model(
             "n_fields": n_fields,
             "field_size_px": size,
             "grain_px_range": list(GRAIN_PX_RANGE),
+            "pixel_size_um_range": list(PIXEL_UM_RANGE),
+            "pixel_size_draw": "log-uniform, generator seeded with (field seed, 1)",
             "field_seeds": [
                 TRAIN_SEED_BASE + 1000 * seed,
                 TRAIN_SEED_BASE + 1000 * seed + n_fields - 1,
@@ -172,6 +225,14 @@ def build_default_model(
             "build_seconds": None,
         },
     )
+    regions_path = out / "fracto-default.regions.npz"
+    n_saved = save_regions(regions_path, ts, MODES, seed=seed)
+    card["saved_regions"] = {
+        "file": regions_path.name,
+        "n_regions": n_saved,
+        "selection": f"seeded random subset (seed {seed}) of the training regions",
+        "keys": ["X", "y", "groups", "feature_names", "classes", "feature_set_version"],
+    }
     card["build_seconds"] = round(time.perf_counter() - t0, 1)
     from fracto.io.safe import write_json_atomic
 

@@ -8,12 +8,21 @@ when the image has no calibration or the model is scale-free, from the image
 itself: the lag at which the radially averaged autocorrelation of the lightly
 smoothed image falls to one half (see :func:`estimate_texture_scale_px`).
 
-On the working grid a filter bank is computed once, at three scales (¼, ½ and 1
-texture scale), and pooled per square tile with block reductions; each tile
-also carries the mean of every feature over its 3 × 3 neighbourhood of tiles
-(``ctx_`` columns: the surroundings of a region). Tiles are
-2 × 2 blocks of :data:`BLOCK_SCALES` texture scales each and overlap by half,
-so each block (the unit of the mode map) is covered by up to four tiles.
+On the working grid a filter bank is computed once, at four scales (¼, ½, 1
+and 2 texture scales), and pooled per square tile with block reductions; the
+coarse scales are computed on the working grid reduced by block averaging
+(2^k px into one, as long as σ stays at least 1.5 reduced pixels), which gives
+the same tiles at a fraction of the cost. Filters are OpenCV float32
+(Gaussian blur, central differences); tile quantiles come from per-block
+intensity histograms. Besides gradient, Laplacian, Hessian, structure-tensor,
+intensity, local-binary-pattern and spectral statistics, a tile carries the
+orientation coherence of its fine lines (river lines fan out, striations are
+parallel) and the distance to the nearest ridge or valley line (the size of
+flat facets). Each tile also carries the mean of every feature over its 3 × 3
+and its 7 × 7 neighbourhood of tiles (``ctx_`` and ``ctx7_`` columns: the
+surroundings of a region). Tiles are 2 × 2 blocks of :data:`BLOCK_SCALES`
+texture scales each and overlap by half, so each block (the unit of the mode
+map) is covered by up to four tiles.
 
 Every feature has a one-line description in :data:`FEATURE_DESCRIPTIONS`; the
 list changes only together with :data:`FEATURE_SET_VERSION`.
@@ -30,6 +39,10 @@ References
 .. [4] Lindeberg, T. (1998). Feature detection with automatic scale selection.
    IJCV 30(2), 79-116 (scale-normalised derivatives and Hessian eigenvalues).
 .. [5] ISO 25178-2 (2012) for Sq and Sdr of the height-map features.
+.. [6] Burt, P. J., Adelson, E. H. (1983). The Laplacian pyramid as a compact image
+   code. IEEE Trans. Commun. 31(4), 532-540 (filtering coarse scales on reduced grids).
+.. [7] Borgefors, G. (1986). Distance transformations in digital images. CVGIP 34,
+   344-371 (distance to the nearest line pixel, as in cv2.distanceTransform).
 """
 
 from __future__ import annotations
@@ -42,22 +55,31 @@ from scipy import ndimage
 from fracto.errors import FractoInputError
 
 #: Changes whenever a feature is added, removed or computed differently.
-FEATURE_SET_VERSION = "fracto-modes-2"
+FEATURE_SET_VERSION = "fracto-modes-3"
 
 #: Texture scale on the working grid, in pixels.
 WORK_SCALE_PX = 6.0
 #: Filter scales as multiples of the texture scale.
-SIGMA_FACTORS: tuple[float, ...] = (0.25, 0.5, 1.0)
+SIGMA_FACTORS: tuple[float, ...] = (0.25, 0.5, 1.0, 2.0)
 #: Side of one block (the mode-map cell) in texture scales; a tile is 2 × 2 blocks.
 BLOCK_SCALES = 8.0 / 3.0  # 16 px on the working grid
 #: Zoom limits from the image to the working grid (never blow a small texture up more).
 ZOOM_LIMITS = (1.0 / 32.0, 1.5)
 #: Smallest working grid side (three blocks) that can be classified.
 MIN_BLOCKS = 3
-#: Append the 3 × 3-tile neighbourhood mean of every feature ("ctx_" columns).
+#: Append the 3 × 3- and 7 × 7-tile neighbourhood means of every feature
+#: ("ctx_" and "ctx7_" columns).
 CONTEXT = True
+#: Neighbourhood sides (in tiles) of the context columns and their name prefixes.
+CONTEXT_SIZES: tuple[tuple[int, str], ...] = ((3, "ctx_"), (7, "ctx7_"))
+#: Smallest Gaussian σ, in reduced pixels, a coarse scale is filtered at after reduction.
+MIN_REDUCED_SIGMA = 1.5
+#: Largest reduction factor of the working grid for the coarse scales.
+MAX_REDUCTION = 8
+#: Intensity histogram bins of the tile quantiles.
+QUANTILE_BINS = 128
 
-_SCALE_NAMES = ("s1", "s2", "s3")  # ¼, ½, 1 texture scale
+_SCALE_NAMES = ("s1", "s2", "s3", "s4")  # ¼, ½, 1, 2 texture scales
 
 
 def _describe() -> dict[str, str]:
@@ -77,6 +99,34 @@ def _describe() -> dict[str, str]:
         d[f"ridge_frac_{name}"] = f"fraction of pixels on a bright ridge or edge {at}"
         d[f"coh_local_{name}"] = f"mean local structure-tensor coherence {at}"
         d[f"coh_tile_{name}"] = f"structure-tensor coherence of the whole tile {at}"
+    for name in ("s1", "s2"):
+        frac = SIGMA_FACTORS[_SCALE_NAMES.index(name)]
+        d[f"line_coh_{name}"] = (
+            f"orientation coherence of the tile's ridge and valley lines at σ = {frac:g} "
+            "texture scale (1 parallel, 0 fanned or random)"
+        )
+    d["line_align_s1_s3"] = (
+        "cosine of twice the angle between the fine lines (¼ scale) and the coarse "
+        "gradient (1 scale): -1 lines along coarse structures, +1 across them"
+    )
+    d["facet_dist_mean"] = (
+        "mean distance to the nearest ridge or valley line at ½ scale, in texture scales"
+    )
+    d["facet_dist_max"] = (
+        "largest distance to a ridge or valley line at ½ scale in the tile, in texture scales"
+    )
+    d["facet_dist_mean_s3"] = (
+        "mean distance to the nearest ridge or valley line at 1 scale, in texture scales"
+    )
+    d["facet_interior_frac"] = (
+        "share of the tile farther than ½ texture scale from a line at 1 scale (facet interiors)"
+    )
+    d["facet_line_frac_s1"] = (
+        "share of the facet interiors on a ridge or valley line at ¼ scale (river lines)"
+    )
+    d["facet_grad_rel_s1"] = (
+        "mean gradient at ¼ scale in the facet interiors over its tile mean (flat facets < 1)"
+    )
     d["int_mean"] = "tile mean of the robustly normalised intensity"
     d["int_std_s1"] = "intensity standard deviation in the tile after smoothing at ¼ scale"
     d["int_p10"] = "10th percentile of the smoothed intensity in the tile"
@@ -109,8 +159,15 @@ def _describe_height() -> dict[str, str]:
 
 
 def _with_context(d: dict[str, str]) -> dict[str, str]:
-    ctx = {f"ctx_{k}": f"mean over the 3 x 3 neighbouring tiles of: {v}" for k, v in d.items()}
-    return {**d, **ctx}
+    out = dict(d)
+    for size, prefix in CONTEXT_SIZES:
+        out.update(
+            {
+                f"{prefix}{k}": f"mean over the {size} x {size} neighbouring tiles of: {v}"
+                for k, v in d.items()
+            }
+        )
+    return out
 
 
 _BASE = _describe()
@@ -124,7 +181,11 @@ HEIGHT_FEATURE_DESCRIPTIONS: dict[str, str] = _with_context(_BASE_HEIGHT)
 def feature_names(*, with_height: bool = False) -> list[str]:
     """Column names of the feature matrix, in order."""
     base = list(_BASE) + (list(_BASE_HEIGHT) if with_height else [])
-    return base + [f"ctx_{n}" for n in base] if CONTEXT else base
+    return _context_names(base) if CONTEXT else base
+
+
+def _context_names(base: list[str]) -> list[str]:
+    return base + [f"{prefix}{n}" for _, prefix in CONTEXT_SIZES for n in base]
 
 
 @dataclass(frozen=True)
@@ -356,32 +417,10 @@ def _resample(arr: np.ndarray, zoom: float) -> np.ndarray:
     return cv2.resize(np.ascontiguousarray(arr, dtype=np.float32), size, interpolation=interp)
 
 
-def _blocks(m: np.ndarray, b: int) -> np.ndarray:
-    """Block sums (nby, nbx) of a map whose sides are multiples of b."""
-    ny, nx = m.shape
-    return m.reshape(ny // b, b, nx // b, b).sum(axis=(1, 3), dtype=np.float64)
-
-
 def _tiles(bs: np.ndarray) -> np.ndarray:
     """Sums over 2 × 2 blocks (tiles) from block sums; flattened row-major."""
     t = bs[:-1, :-1] + bs[1:, :-1] + bs[:-1, 1:] + bs[1:, 1:]
     return t.reshape(-1)
-
-
-class _Pool:
-    """Tile means/standard deviations of maps on the padded working grid."""
-
-    def __init__(self, b: int):
-        self.b = b
-        self.n = 4.0 * b * b
-
-    def mean(self, m: np.ndarray) -> np.ndarray:
-        return _tiles(_blocks(m, self.b)) / self.n
-
-    def mean_std(self, m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        mu = self.mean(m)
-        m2 = _tiles(_blocks(m.astype(np.float64) ** 2, self.b)) / self.n
-        return mu, np.sqrt(np.clip(m2 - mu**2, 0, None))
 
 
 def _tile_windows(m: np.ndarray, b: int) -> np.ndarray:
@@ -467,8 +506,9 @@ def region_features(
     X = np.column_stack([cols[n] for n in names]).astype(np.float32)
     X[~np.isfinite(X)] = 0.0
     if CONTEXT:
-        X = np.hstack([X, context_mean(X, (nby - 1, nbx - 1))])
-        names = names + [f"ctx_{n}" for n in names]
+        grid = (nby - 1, nbx - 1)
+        X = np.hstack([X] + [context_mean(X, grid, size=k) for k, _ in CONTEXT_SIZES])
+        names = _context_names(names)
     return RegionFeatures(
         X=X,
         names=names,
@@ -480,37 +520,189 @@ def region_features(
     )
 
 
-def context_mean(X: np.ndarray, tile_grid: tuple[int, int]) -> np.ndarray:
-    """Mean of each feature over the 3 × 3 tiles centred on each tile (fewer at edges)."""
+def context_mean(X: np.ndarray, tile_grid: tuple[int, int], *, size: int = 3) -> np.ndarray:
+    """Mean of each feature over the size × size tiles centred on each tile (fewer at edges)."""
     ty, tx = tile_grid
     a = X.reshape(ty, tx, -1).astype(np.float64)
-    num = ndimage.uniform_filter(a, size=(3, 3, 1), mode="constant")
-    den = ndimage.uniform_filter(np.ones((ty, tx, 1)), size=(3, 3, 1), mode="constant")
+    num = ndimage.uniform_filter(a, size=(size, size, 1), mode="constant")
+    den = ndimage.uniform_filter(np.ones((ty, tx, 1)), size=(size, size, 1), mode="constant")
     return (num / den).reshape(ty * tx, -1).astype(np.float32)
 
 
-def _image_columns(w: np.ndarray, s: float, b: int) -> dict[str, np.ndarray]:
-    from skimage.feature import local_binary_pattern
+def _blur(m: np.ndarray, sigma: float) -> np.ndarray:
+    import cv2
 
-    pool = _Pool(b)
+    return cv2.GaussianBlur(m, (0, 0), sigmaX=sigma, sigmaY=sigma, borderType=cv2.BORDER_REFLECT)
+
+
+#: Five-point central difference stencils (correlation order, offsets -2..2): errors of
+#: order h^4, so derivatives stay accurate when σ is only 1.5 px on a reduced grid.
+_D1 = np.array([1.0, -8.0, 0.0, 8.0, -1.0], np.float32) / 12.0
+_D2 = np.array([-1.0, 16.0, -30.0, 16.0, -1.0], np.float32) / 12.0
+_D0 = np.array([0.0, 0.0, 1.0, 0.0, 0.0], np.float32)
+
+
+def _diff(m: np.ndarray, axis: int, scale: float, *, order: int = 1) -> np.ndarray:
+    """First or second derivative along `axis` (five-point stencil) times `scale`."""
+    import cv2
+
+    k = (_D1 if order == 1 else _D2) * np.float32(scale)
+    kx, ky = (k, _D0) if axis == 1 else (_D0, k)
+    return cv2.sepFilter2D(m, cv2.CV_32F, kx, ky, borderType=cv2.BORDER_REFLECT)
+
+
+def _reduce(m: np.ndarray, f: int) -> np.ndarray:
+    """Block mean over f × f pixels (the sides are multiples of f)."""
+    import cv2
+
+    if f == 1:
+        return m
+    ny, nx = m.shape
+    return cv2.resize(m, (nx // f, ny // f), interpolation=cv2.INTER_AREA)
+
+
+def _reduction(sig: float, b: int) -> int:
+    """Largest power of two that keeps σ ≥ MIN_REDUCED_SIGMA and whole blocks of ≥ 2 px."""
+    f = 1
+    while (
+        2 * f <= MAX_REDUCTION
+        and sig / (2 * f) >= MIN_REDUCED_SIGMA
+        and b % (2 * f) == 0
+        and b // (2 * f) >= 2
+    ):
+        f *= 2
+    return f
+
+
+def _median(m: np.ndarray) -> float:
+    step = 2 if m.size > 250_000 else 1
+    return float(np.median(m[::step, ::step]))
+
+
+def _tile_quantiles(g: np.ndarray, b: int, qs: tuple[float, ...]) -> list[np.ndarray]:
+    """Quantiles of [0, 1] values per tile from per-block histograms (linear in a bin)."""
+    nb = QUANTILE_BINS
+    ny, nx = g.shape
+    nby, nbx = ny // b, nx // b
+    q = np.minimum((np.clip(g, 0.0, 1.0) * nb).astype(np.int32), nb - 1)
+    blk = (np.arange(ny) // b)[:, None] * nbx + (np.arange(nx) // b)[None, :]
+    h = np.bincount((blk * nb + q).ravel(), minlength=nby * nbx * nb).reshape(nby, nbx, nb)
+    t = (h[:-1, :-1] + h[1:, :-1] + h[:-1, 1:] + h[1:, 1:]).reshape(-1, nb)
+    cum = np.cumsum(t, axis=1)
+    n = cum[:, -1:].astype(np.float64)
+    out = []
+    rows = np.arange(t.shape[0])
+    for p in qs:
+        target = p * n[:, 0]
+        i = np.minimum((cum < target[:, None]).sum(axis=1), nb - 1)
+        below = np.where(i > 0, cum[rows, np.maximum(i - 1, 0)], 0)
+        frac = (target - below) / np.maximum(t[rows, i], 1)
+        out.append((i + np.clip(frac, 0.0, 1.0)) / nb)
+    return out
+
+
+def _lbp_uniform(g8: np.ndarray, radius: float) -> np.ndarray:
+    """Rotation-invariant uniform LBP codes 0..9 (P = 8), bilinear neighbours.
+
+    Same definition as skimage.feature.local_binary_pattern(method="uniform"):
+    a neighbour counts when it is at least the centre; codes with at most two
+    0/1 transitions around the circle are their number of ones, others are 9.
+    """
+    import cv2
+
+    ny, nx = g8.shape
+    ones = np.zeros((ny, nx), np.uint8)
+    trans = np.zeros((ny, nx), np.uint8)
+    first = prev = None
+    for p in range(8):
+        a = 2.0 * np.pi * p / 8
+        dy, dx = -radius * np.sin(a), radius * np.cos(a)
+        M = np.array([[1.0, 0.0, dx], [0.0, 1.0, dy]], np.float32)
+        nb = cv2.warpAffine(
+            g8,
+            M,
+            (nx, ny),
+            flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+            borderMode=cv2.BORDER_REFLECT,
+        )
+        bit = (nb >= g8 - 1e-4).view(np.uint8)
+        ones += bit
+        if prev is None:
+            first = bit
+        else:
+            trans += bit ^ prev
+        prev = bit
+    trans += first ^ prev
+    return np.where(trans <= 2, ones, 9).astype(np.int32)
+
+
+class _Pool:
+    """Tile means/standard deviations of maps on the padded (possibly reduced) grid."""
+
+    def __init__(self, b: int):
+        self.b = b
+
+    def blocks(self, m: np.ndarray) -> np.ndarray:
+        return _reduce(np.ascontiguousarray(m, dtype=np.float32), self.b).astype(np.float64)
+
+    def mean(self, m: np.ndarray) -> np.ndarray:
+        bs = self.blocks(m)
+        return 0.25 * _tiles(bs)
+
+    def mean_std(self, m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        m = np.ascontiguousarray(m, dtype=np.float32)
+        mu = self.mean(m)
+        m2 = self.mean(m * m)
+        return mu, np.sqrt(np.clip(m2 - mu**2, 0, None))
+
+    def max(self, m: np.ndarray) -> np.ndarray:
+        b = self.b
+        ny, nx = m.shape
+        bs = m.reshape(ny // b, b, nx // b, b).max(axis=(1, 3))
+        t = np.maximum(np.maximum(bs[:-1, :-1], bs[1:, :-1]), np.maximum(bs[:-1, 1:], bs[1:, 1:]))
+        return t.reshape(-1)
+
+
+def _expand(mask: np.ndarray, f: int) -> np.ndarray:
+    """A mask of the grid reduced by f back on the full grid (each pixel f × f times)."""
+    if f == 1:
+        return mask
+    return np.repeat(np.repeat(mask, f, axis=0), f, axis=1)
+
+
+def _facet_distance(mask: np.ndarray, f: int, s: float) -> np.ndarray:
+    """Distance (texture scales) of every pixel to the nearest True pixel of `mask`."""
+    import cv2
+
+    src = np.ascontiguousarray(~mask, dtype=np.uint8)
+    if not mask.any():
+        return np.full(mask.shape, 16.0, np.float32)
+    d = cv2.distanceTransform(src, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)
+    return np.minimum(d * (f / s), 16.0).astype(np.float32)
+
+
+def _image_columns(w: np.ndarray, s: float, b: int) -> dict[str, np.ndarray]:
+    w = np.ascontiguousarray(w, dtype=np.float32)
     cols: dict[str, np.ndarray] = {}
     eps = 1e-6
     g1 = None
-    grad_med = None
+    line_vec: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    grad_vec: dict[str, tuple[np.ndarray, np.ndarray]] = {}
     for name, frac in zip(_SCALE_NAMES, SIGMA_FACTORS, strict=True):
         sig = max(0.7, frac * s)
-        g = ndimage.gaussian_filter(w, sig)
-        gy, gx = np.gradient(g)
-        gy *= sig
-        gx *= sig
-        gm = np.hypot(gx, gy)
-        hyy, hyx = np.gradient(gy)
-        hxy, hxx = np.gradient(gx)
-        hxy = 0.5 * (hxy + hyx) * sig
-        hxx *= sig
-        hyy *= sig
+        f = 1 if name == "s1" else _reduction(sig, b)
+        pool = _Pool(b // f)
+        d = _reduce(w, f)
+        sd = float(np.sqrt(max(sig**2 - (f * f - 1) / 12.0, 0.25))) / f
+        sn = sig / f  # scale normalisation in reduced pixels
+        g = _blur(d, sd)
+        gx, gy = _diff(g, 1, sn), _diff(g, 0, sn)
+        gm = cv2_magnitude(gx, gy)
+        hxx, hyy = _diff(g, 1, sn * sn, order=2), _diff(g, 0, sn * sn, order=2)
+        hxy = _diff(gx, 0, sn)
         tr = hxx + hyy
-        disc = np.sqrt((0.5 * (hxx - hyy)) ** 2 + hxy**2)
+        dxy = hxx - hyy
+        disc = 0.5 * cv2_magnitude(dxy, 2.0 * hxy)
         lmin, lmax = 0.5 * tr - disc, 0.5 * tr + disc
         cols[f"grad_mean_{name}"], cols[f"grad_std_{name}"] = pool.mean_std(gm)
         cols[f"log_mean_{name}"], cols[f"log_std_{name}"] = pool.mean_std(tr)
@@ -518,42 +710,76 @@ def _image_columns(w: np.ndarray, s: float, b: int) -> dict[str, np.ndarray]:
         cols[f"hess_min_mean_{name}"] = pool.mean(lmin)
         cols[f"hess_max_mean_{name}"] = pool.mean(lmax)
         cols[f"hess_aniso_mean_{name}"] = pool.mean(2 * disc / (np.abs(lmin) + np.abs(lmax) + eps))
-        thr = 2.0 * float(np.median(np.abs(lmin))) + eps
-        cols[f"ridge_frac_{name}"] = pool.mean((lmin < -thr).astype(np.float32))
+        thr = 2.0 * _median(np.abs(lmin)) + eps
+        ridge = lmin < -thr
+        cols[f"ridge_frac_{name}"] = pool.mean(ridge)
         jxx, jyy, jxy = gx * gx, gy * gy, gx * gy
-        si = 2.0 * sig
-        sxx = ndimage.gaussian_filter(jxx, si)
-        syy = ndimage.gaussian_filter(jyy, si)
-        sxy = ndimage.gaussian_filter(jxy, si)
-        coh = np.sqrt((sxx - syy) ** 2 + 4 * sxy**2) / (sxx + syy + eps)
+        si = 2.0 * sn
+        sxx, syy, sxy = _blur(jxx, si), _blur(jyy, si), _blur(jxy, si)
+        coh = cv2_magnitude(sxx - syy, 2 * sxy) / (sxx + syy + eps)
         cols[f"coh_local_{name}"] = pool.mean(coh)
         txx, tyy, txy = pool.mean(jxx), pool.mean(jyy), pool.mean(jxy)
         cols[f"coh_tile_{name}"] = np.sqrt((txx - tyy) ** 2 + 4 * txy**2) / (txx + tyy + eps)
-        if g1 is None:
-            g1 = g
-            grad_med = float(np.median(gm)) + eps
-            cols["smooth_frac"] = pool.mean((gm < 0.1 * grad_med).astype(np.float32))
+        grad_vec[name] = (txx - tyy, 2 * txy)
+        if name in ("s1", "s2"):
+            # doubled-angle line direction: bright ridges (trace < 0) and dark valleys alike
+            sgn = np.where(tr < 0, 1.0, -1.0).astype(np.float32)
+            vx, vy = pool.mean(sgn * dxy), pool.mean(sgn * 2.0 * hxy)
+            cols[f"line_coh_{name}"] = np.hypot(vx, vy) / (pool.mean(2 * disc) + eps)
+            line_vec[name] = (vx, vy)
+        lines = ridge | (lmax > 2.0 * _median(np.abs(lmax)) + eps)
+        if name in ("s2", "s3"):
+            dist = _facet_distance(lines, f, s)
+            key = "facet_dist_mean" if name == "s2" else "facet_dist_mean_s3"
+            cols[key] = pool.mean(dist)
+            if name == "s2":
+                cols["facet_dist_max"] = pool.max(dist)
+            else:
+                interior = _expand(dist > 0.5, f)
+        if name == "s1":
+            g1, gm1, lines1 = g, gm, lines
+            grad_med = _median(gm) + eps
+            cols["smooth_frac"] = pool.mean(gm < 0.1 * grad_med)
     assert g1 is not None
+    pool = _Pool(b)
+    inside = pool.mean(interior)
+    cols["facet_interior_frac"] = inside
+    cols["facet_line_frac_s1"] = pool.mean(interior & lines1) / (inside + eps)
+    cols["facet_grad_rel_s1"] = pool.mean(np.where(interior, gm1, 0.0)) / (
+        (inside + eps) * (pool.mean(gm1) + eps)
+    )
+    (ax, ay), (bx, by) = line_vec["s1"], grad_vec["s3"]
+    cols["line_align_s1_s3"] = (ax * bx + ay * by) / (np.hypot(ax, ay) * np.hypot(bx, by) + 1e-12)
     cols["int_mean"] = pool.mean(w)
     mu, sd = pool.mean_std(g1)
     cols["int_std_s1"] = sd
-    m3 = pool.mean((g1.astype(np.float64)) ** 3)
+    m3 = pool.mean(g1 * g1 * g1)
     cols["int_skew"] = (m3 - 3 * mu * sd**2 - mu**3) / (sd**3 + eps)
     cols["fine_std"] = pool.mean_std(w - g1)[1]
-    tiles = _tile_windows(g1, b).reshape(-1, 4 * b * b)
-    p10, p50, p90 = np.percentile(tiles, [10, 50, 90], axis=1)
+    p10, p50, p90 = _tile_quantiles(g1, b, (0.10, 0.50, 0.90))
     cols["int_p10"], cols["int_p50"], cols["int_p90"] = p10, p50, p90
-    cols["int_rel_image"] = p50 - float(np.median(g1))
+    cols["int_rel_image"] = p50 - _median(g1)
     radius = max(1.0, 0.5 * s)
-    g8 = np.clip(g1 * 255.0 + 0.5, 0, 255).astype(np.uint8)
-    lbp = local_binary_pattern(g8, 8, radius, method="uniform").astype(np.int8)
-    hist = np.column_stack([pool.mean((lbp == k).astype(np.float32)) for k in range(10)])
+    g8 = np.rint(np.clip(g1, 0.0, 1.0) * 255.0).astype(np.float32)
+    code = _lbp_uniform(g8, radius)
+    ny, nx = code.shape
+    nby, nbx = ny // b, nx // b
+    blk = (np.arange(ny) // b)[:, None] * nbx + (np.arange(nx) // b)[None, :]
+    h = np.bincount((blk * 10 + code).ravel(), minlength=nby * nbx * 10).reshape(nby, nbx, 10)
+    hist = (h[:-1, :-1] + h[1:, :-1] + h[:-1, 1:] + h[1:, 1:]).reshape(-1, 10) / (4.0 * b * b)
     for k in range(10):
         cols[f"lbp_{k}"] = hist[:, k]
     p = np.clip(hist, 1e-12, None)
     cols["lbp_entropy"] = -(hist * np.log2(p)).sum(axis=1)
     cols.update(_spectral_columns(w, b, s))
     return cols
+
+
+def cv2_magnitude(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """sqrt(x² + y²) of two float32 maps (OpenCV)."""
+    import cv2
+
+    return cv2.magnitude(np.ascontiguousarray(x, np.float32), np.ascontiguousarray(y, np.float32))
 
 
 def _spectral_columns(w: np.ndarray, b: int, s: float) -> dict[str, np.ndarray]:
