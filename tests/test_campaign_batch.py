@@ -385,7 +385,7 @@ def test_unreachable_scheduler_is_one_sentence(tmp_path, campaign, model_file, c
 
 
 def test_ctrl_c_with_two_jobs_stops_cleanly_and_resumes(tmp_path, model_file, capsys):
-    # Deterministic: once the first result is stored, this test holds the database's
+    # Deterministic: once the results table exists, this test holds the database's
     # write lock, so the batch cannot store (and so cannot finish) before the Ctrl-C
     # arrives; the lock is let go after the signal and the batch stops by itself.
     n_sem = 16
@@ -422,16 +422,15 @@ def test_ctrl_c_with_two_jobs_stops_cleanly_and_resumes(tmp_path, model_file, ca
                 try:
                     c = sqlite3.connect(db, timeout=1, isolation_level=None)
                     c.execute("BEGIN IMMEDIATE")  # the write lock: no result stored from now
+                    # the lock is taken as soon as the results table exists: with fast
+                    # workers the whole batch can be stored within one polling interval
                     n_at_lock = c.execute("SELECT COUNT(*) FROM results").fetchone()[0]
-                    if n_at_lock >= 1:
-                        lock = c
-                        break
-                    c.execute("ROLLBACK")
-                    c.close()
+                    lock = c
+                    break
                 except sqlite3.OperationalError:
-                    pass
+                    pass  # no table yet, or the batch is writing: try again
             time.sleep(0.02)
-        assert lock is not None, "no result was stored in time"
+        assert lock is not None, "the batch made no results database in time"
         assert n_at_lock < total, "the batch stored every result before the lock was taken"
         assert proc.poll() is None, "the batch ended with results still to store"
         proc.send_signal(signal.SIGINT)

@@ -137,6 +137,29 @@ def single_thread_worker() -> None:
 
 
 @contextlib.contextmanager
+def interrupt_deferred():
+    """Hold a Ctrl-C that arrives inside the block until the block has finished.
+
+    Starting a spawned worker writes its start-up data down a pipe; a
+    KeyboardInterrupt in the middle of that write leaves the child reading a
+    truncated pipe and printing a traceback. Off the main thread this does nothing.
+    """
+    import signal
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if caught:
+        raise KeyboardInterrupt
+
+
+@contextlib.contextmanager
 def one_thread():
     """Context: one thread for OpenMP, BLAS and OpenCV in this process, restored after."""
     from threadpoolctl import threadpool_limits
@@ -524,14 +547,15 @@ class Scorer:
 
             # "spawn", not fork: a parent that has already run OpenMP code (a scikit-learn
             # prediction in this process) can leave forked children deadlocked.
-            self._pool = ProcessPoolExecutor(
-                max_workers=self.jobs,
-                mp_context=multiprocessing.get_context("spawn"),
-                initializer=init_worker,
-                initargs=(self.spec,),
-            )
-            # one submission per worker makes the pool spawn them all now
-            self._warm = [self._pool.submit(os.getpid) for _ in range(self.jobs)]
+            with interrupt_deferred():
+                self._pool = ProcessPoolExecutor(
+                    max_workers=self.jobs,
+                    mp_context=multiprocessing.get_context("spawn"),
+                    initializer=init_worker,
+                    initargs=(self.spec,),
+                )
+                # one submission per worker makes the pool spawn them all now
+                self._warm = [self._pool.submit(os.getpid) for _ in range(self.jobs)]
         return self
 
     def _start_dask(self) -> None:
