@@ -298,10 +298,14 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         self.calibrators_ = _fit_calibrators(scores[oof], y[oof], self.classes_, method)
         self.n_cv_folds_ = len(folds)
         # honest held-out probabilities: booster i on fold i, calibrated without fold i
+        # (with a single usable fold there is nothing else to calibrate on: that fold's
+        # held-out scores then use the calibrator fitted on it, which flatters them)
         cal_wo = [
             _fit_calibrators(
                 scores[oof & (fold_of != i)], y[oof & (fold_of != i)], self.classes_, method
             )
+            if np.any(oof & (fold_of != i))
+            else self.calibrators_
             for i in range(len(folds))
         ]
         fold_groups = [set(np.unique(groups[te]).tolist()) for _, te in folds]
