@@ -12,7 +12,9 @@ on the folder (no temperatures, so the transition fit is skipped) without the re
 
 Printed per configuration: wall time of the whole call, throughput (images/s)
 over the whole call, and the steady throughput between the first and last
-finished image (worker start-up and model loading excluded); then the ratios.
+finished image (worker start-up and model loading excluded), and the CPU time of
+this (the calling) process per image — its share competes with the workers for the
+two cores; then the ratios.
 
 Then the CPU time of one image's work, in this process under one thread
 (``time.process_time``, much less sensitive to other load on the machine than the
@@ -69,6 +71,7 @@ def run(label: str, folder: Path, model: str, **kw) -> dict:
     stamps: list[float] = []
     with tempfile.TemporaryDirectory(prefix="fracto-bench-out-") as d:
         t0 = time.perf_counter()
+        c0 = time.process_time()
         s = run_batch(
             folder,
             Path(d) / "out",
@@ -78,6 +81,7 @@ def run(label: str, folder: Path, model: str, **kw) -> dict:
             **kw,
         )
         wall = time.perf_counter() - t0
+        main_cpu = time.process_time() - c0
     n = s.scored
     steady = (
         (n - 1) / (stamps[-1] - stamps[0]) if n > 1 and stamps[-1] > stamps[0] else float("nan")
@@ -89,11 +93,13 @@ def run(label: str, folder: Path, model: str, **kw) -> dict:
         "wall": wall,
         "ips": n / wall,
         "steady": steady,
+        "main_cpu_per_image": main_cpu / max(n, 1),
     }
     print(
         f"{label:<22} {n} images, {s.failed} failed, wall {wall:6.1f} s, "
         f"{r['ips']:.2f} images/s overall, {steady:.2f} images/s steady "
-        f"(load {os.getloadavg()[0]:.1f})"
+        f"(load {os.getloadavg()[0]:.1f}); this process {r['main_cpu_per_image']:.3f} s CPU "
+        "per image"
     )
     return r
 

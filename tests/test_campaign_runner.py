@@ -6,6 +6,10 @@ OpenMP and BLAS library (threadpool_info) and OpenCV's cv2.getNumThreads.
 
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
+
 import pytest
 
 from fracto.campaign import runner
@@ -62,3 +66,42 @@ def test_dask_tasks_use_one_thread(spec):
 def _counts_in_task() -> dict[str, int]:
     runner.single_thread_worker()
     return runner.thread_counts()
+
+
+_FAULT_PROBE = """
+import resource, sys
+import numpy as np
+from fracto.campaign.runner import reuse_freed_memory
+changed = reuse_freed_memory() if sys.argv[1] == "fix" else False
+np.ones(2**20)  # warm up: the heap grows once
+f0 = resource.getrusage(resource.RUSAGE_SELF).ru_minflt
+for _ in range(20):
+    a = np.ones(2**20)  # 8 MiB = 2048 pages of 4 KiB, freed at once
+    del a
+print(int(changed), resource.getrusage(resource.RUSAGE_SELF).ru_minflt - f0)
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc malloc only")
+def test_worker_reuses_freed_arrays_under_a_fixed_trim_threshold():
+    # Dask's nanny exports MALLOC_TRIM_THRESHOLD_=65536; glibc then maps every array
+    # above 128 KiB fresh (mallopt(3): a fixed threshold turns off the adaptive mmap
+    # threshold), so each of 20 allocations of 8 MiB is faulted in anew: at least
+    # 8 MiB / 2 MiB = 4 faults each even if the kernel backs it with transparent huge
+    # pages (2048 with 4 KiB pages). After reuse_freed_memory() the heap keeps the
+    # block: almost no new faults.
+    env = {**os.environ, "MALLOC_TRIM_THRESHOLD_": "65536"}
+
+    def faults(arg):
+        out = subprocess.run(
+            [sys.executable, "-c", _FAULT_PROBE, arg], env=env, capture_output=True, text=True
+        )
+        assert out.returncode == 0, out.stderr
+        changed, n = map(int, out.stdout.split())
+        return changed, n
+
+    changed_before, before = faults("none")
+    changed_after, after = faults("fix")
+    assert (changed_before, changed_after) == (0, 1)
+    assert before >= 20 * 4
+    assert after < 0.1 * before
