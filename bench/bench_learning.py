@@ -65,16 +65,44 @@ def main(argv=None) -> int:
     p.add_argument("--model", help="base model (.skops with .regions.npz); default: train one")
     p.add_argument("--default-model", action="store_true", help="use fracto's default model")
     p.add_argument("--base-fields", type=int, default=6)
-    p.add_argument("--pool", type=int, default=4, help="new-material images in the pool")
-    p.add_argument("--test", type=int, default=3, help="held-out new-material images")
-    p.add_argument("--size", type=int, default=192)
+    p.add_argument("--pool", type=int, default=6, help="new-material images in the pool")
+    p.add_argument("--test", type=int, default=4, help="held-out new-material images")
+    p.add_argument("--size", type=int, default=256)
     p.add_argument("--k", type=int, default=10, help="regions added per round")
-    p.add_argument("--rounds", type=int, default=8)
+    p.add_argument("--rounds", type=int, default=16)
     p.add_argument("--max-iter", type=int, default=30)
     p.add_argument("--new-weight", type=float, default=10.0)
     p.add_argument("--target", type=float, default=0.9)
+    p.add_argument("--base-grain", type=float, default=10.0, help="base grain size (px)")
+    p.add_argument("--new-grain", type=float, default=70.0, help="new grain size (px)")
+    p.add_argument("--repeats", type=int, default=3, help="runs with other seeds (mean)")
     p.add_argument("--seed", type=int, default=0)
     a = p.parse_args(argv)
+    runs = [run(a, a.seed + r) for r in range(a.repeats)]
+    print(f"\nmean of {len(runs)} runs (seeds {a.seed}..{a.seed + len(runs) - 1})")
+    print("regions  suggest  random")
+    mean = {}
+    for name in ("suggest", "random"):
+        mean[name] = [(n, float(np.mean([r[name][q][1] for r in runs])))
+                      for q, (n, _) in enumerate(runs[0][name])]  # fmt: skip
+    for (n, s), (_, rr) in zip(mean["suggest"], mean["random"], strict=True):
+        print(f"{n:7d}  {s:7.3f}  {rr:6.3f}")
+    for name, c in mean.items():
+        hit = next((n for n, v in c if v >= a.target), None)
+        n_max = c[-1][0]
+        print(
+            f"{name}: {hit} regions to reach {a.target} (mean curve)"
+            if hit is not None
+            else f"{name}: not reached within {n_max} regions (best {max(v for _, v in c):.3f})"
+        )
+    load = os.getloadavg()
+    print(f"load average {load[0]:.2f} {load[1]:.2f} {load[2]:.2f}")
+    return 0
+
+
+def run(a, seed: int) -> dict:
+    """One learning-curve comparison with seed `seed`; returns both curves."""
+    print(f"\n=== seed {seed}")
     t0 = time.perf_counter()
     params = dict(max_iter=a.max_iter, n_calibration_folds=2, n_importance_repeats=0)
     # ------------------------------------------------ base regions
@@ -82,31 +110,33 @@ def main(argv=None) -> int:
         bm = load_base(a.model or default_model_path())
         base, base_name = bm.regions, str(bm.path)
         if base is None:
-            print("the base model has no stored regions")
-            return 2
+            raise SystemExit("the base model has no stored regions")
     else:
         items = []
         for i in range(a.base_fields):
-            s = 810_000 + 100 * a.seed + i
+            s = 810_000 + 100 * seed + i
             img, lab, _ = synthetic_field(
-                s, size=a.size, grain_px=12.0, modes=BASE_MODES, randomise_render=False
+                s, size=a.size, grain_px=a.base_grain, modes=BASE_MODES, randomise_render=False
             )
             items.append((img, lab, f"base{s}"))
-        base = set_from_arrays(items, MODES, max_regions_per_image=200, seed=a.seed)
-        base_name = f"{a.base_fields} fields, grain 12 px, default rendering, {BASE_MODES}"
+        base = set_from_arrays(items, MODES, max_regions_per_image=200, seed=seed)
+        base_name = (
+            f"{a.base_fields} fields, grain {a.base_grain:g} px, default rendering, {BASE_MODES}"
+        )
     # ------------------------------------------------ new material
-    seeds = [820_000 + 100 * a.seed + i for i in range(a.pool + a.test)]
-    pool = [_pool_image(s, a.size, 40.0) for s in seeds[: a.pool]]
-    test = [_pool_image(s, a.size, 40.0) for s in seeds[a.pool :]]
+    seeds = [820_000 + 100 * seed + i for i in range(a.pool + a.test)]
+    pool = [_pool_image(s, a.size, a.new_grain) for s in seeds[: a.pool]]
+    test = [_pool_image(s, a.size, a.new_grain) for s in seeds[a.pool :]]
     Xte = np.concatenate([f.X[t > 0] for f, t in test])
     yte = np.concatenate([np.asarray(MODES)[t[t > 0] - 1] for _, t in test])
     cand = [(i, j) for i, (_, t) in enumerate(pool) for j in np.nonzero(t > 0)[0]]
     print(f"base: {base_name}; {len(base.y)} regions")
     print(
-        f"new material: grain 40 px, randomised rendering, {NEW_MODES}; pool {len(cand)} "
-        f"labelled regions on {a.pool} images, test {len(yte)} regions on {a.test} images"
+        f"new material: grain {a.new_grain:g} px, randomised rendering, {NEW_MODES}; "
+        f"pool {len(cand)} labelled regions on {a.pool} images, "
+        f"test {len(yte)} regions on {a.test} images"
     )
-    print(f"settings: {params}, new weight {a.new_weight}, k {a.k}, seed {a.seed}")
+    print(f"settings: {params}, new weight {a.new_weight}, k {a.k}, seed {seed}")
 
     def fit(chosen):
         if chosen:
@@ -117,7 +147,7 @@ def main(argv=None) -> int:
             ts, w, _ = merge_with_base(new, base, new_weight=a.new_weight)
         else:
             ts, w = base, None
-        m = ModeClassifier(MODES, random_state=a.seed, **params)
+        m = ModeClassifier(MODES, random_state=seed, **params)
         return m.fit(ts.X, ts.y, ts.groups, sample_weight=w)
 
     def acc(m):
@@ -134,7 +164,7 @@ def main(argv=None) -> int:
         picks.sort(key=lambda r: -r[0])
         return [(i, j) for _, i, j in picks[:k]]
 
-    rng = np.random.default_rng(a.seed)
+    rng = np.random.default_rng(seed)
     order = [cand[q] for q in rng.permutation(len(cand))]
     m0 = fit([])
     curves = {"suggest": [(0, acc(m0))], "random": [(0, acc(m0))]}
@@ -162,9 +192,8 @@ def main(argv=None) -> int:
             if hit is not None
             else f"{name}: not reached within {n_max} regions (best {max(v for _, v in c):.3f})"
         )
-    load = os.getloadavg()
-    print(f"total {time.perf_counter() - t0:.0f} s; load average {load[0]:.2f} {load[1]:.2f}")
-    return 0
+    print(f"run {time.perf_counter() - t0:.0f} s")
+    return curves
 
 
 if __name__ == "__main__":
