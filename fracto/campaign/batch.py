@@ -94,6 +94,30 @@ def default_settings(
     }
 
 
+def _height_model(manifest, path, trust: bool):
+    """The height model's path, sha256 and the model: the given one, else the default
+    when the campaign holds height maps and it is found, else (None, None, None)."""
+    from fracto.modes.heightview import default_height_model_path
+    from fracto.modes.model import load_model, sha256_of
+    from fracto.modes.pipeline import is_height_model
+
+    if path is None:
+        if not any(r.kind == "height" and r.problem is None for r in manifest.rows):
+            return None, None, None
+        try:
+            path = default_height_model_path()
+        except FractoInputError:
+            return None, None, None
+    p = Path(path)
+    model = load_model(p, trust=trust)  # one sentence for a missing or bad file
+    if not is_height_model(model):
+        raise FractoInputError(
+            f"'{p}' is not a height model (it classifies SEM images); give --height-model a "
+            "model built with 'python -m fracto.modes.default_model --height'."
+        )
+    return p, sha256_of(p), model
+
+
 def run_batch(
     source: str | os.PathLike,
     out_dir: str | os.PathLike,
@@ -102,6 +126,7 @@ def run_batch(
     scheduler: str | None = None,
     client=None,
     model_path: str | os.PathLike | None = None,
+    height_model_path: str | os.PathLike | None = None,
     trust: bool = False,
     transition_temperature_C: float | None = None,
     report: bool = True,
@@ -126,6 +151,11 @@ def run_batch(
         An existing Dask client (used instead of `scheduler`).
     model_path : path-like, optional
         Mode model (default :func:`fracto.modes.model.default_model_path`).
+    height_model_path : path-like, optional
+        Height model for the height maps of the campaign (rows without an SEM
+        image); default :func:`fracto.modes.heightview.default_height_model_path`
+        when the campaign holds height maps and one is found, else their mode
+        columns stay empty.
     trust : bool
         Load a model holding unexpected types.
     transition_temperature_C : float, optional
@@ -167,6 +197,7 @@ def run_batch(
     check_output_folder(out)
     (out / OVERLAY_DIR).mkdir(exist_ok=True)
     msha = sha256_of(mpath)
+    hpath, hsha, hmodel = _height_model(manifest, height_model_path, trust)
     settings = default_settings(seed=seed, n_boot=n_boot, threshold=threshold, model_sha256=msha)
     global_hash = settings_hash(settings)
     manifest_id = hashlib.sha256(str(manifest.source.resolve()).encode()).hexdigest()
@@ -190,6 +221,8 @@ def run_batch(
                         "kind": r.kind,
                         "pixel_size_um": r.pixel_size_um,
                         "sidecar_sha256": _sha256_file(side) if side is not None else None,
+                        # the height model decides the fractions of height maps
+                        **({"height_model_sha256": hsha} if r.kind == "height" and hsha else {}),
                     }
                 )
                 d.update(
@@ -229,7 +262,8 @@ def run_batch(
             )
         meta = {t.key: t for t in tasks}
         by_key = {d["key"]: d for d in info.values() if d["key"]}
-        spec = ModelSpec(sha256=msha, path=str(mpath), trust=trust)
+        hspec = ModelSpec(sha256=hsha, path=str(hpath), trust=trust) if hpath else None
+        spec = ModelSpec(sha256=msha, path=str(mpath), trust=trust, height=hspec)
         n_done = 0
         new_ok: set[str] = set()
         scorer = Scorer(spec, jobs=min(jobs, len(tasks)) or 1, scheduler=scheduler, client=client)
@@ -237,7 +271,7 @@ def run_batch(
             if tasks:
                 scorer.start()  # workers start and load the model while this process does too
             model = load_model(mpath, trust=trust)
-            remember_model(spec, model)  # jobs=1 scores with this very object
+            remember_model(spec, model, hmodel)  # jobs=1 scores with these very objects
             names = fraction_names(model)
             for res in scorer.run(tasks):
                 t = meta[res["key"]]
@@ -331,6 +365,11 @@ def run_batch(
         seed=seed,
         run=run,
         counts=counts,
+    )
+    prov["height_model"] = (
+        {"path": str(hpath), "sha256": hsha, "used_for": "height maps without an SEM image"}
+        if hpath
+        else None
     )
     prov["manifest"]["sha256"] = (
         _sha256_file(manifest.source) if manifest.source.is_file() else None

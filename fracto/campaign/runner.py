@@ -25,11 +25,12 @@ BLAS and OpenCV to one thread; ``jobs=1`` runs under the same limit for the
 duration of the batch (restored afterwards), so N workers use N cores and
 ``--jobs 2`` on 2 cores does not oversubscribe them.
 
-Height maps are measured with :func:`fracto.surface.measure.measure_surface`.
-They are also classified when the model takes height maps alone (a model with
-``height_only_ = True`` and a library function
-``fracto.modes.pipeline.classify_height_map``); otherwise their mode columns
-stay empty.
+Height maps are measured with :func:`fracto.surface.measure.measure_surface`
+and classified through their rendered SEM view
+(:func:`fracto.modes.pipeline.classify_height_map`) by the height model
+(``ModelSpec.height``, or the model itself when it takes height maps alone);
+without one, or when the map cannot be classified (no calibration, too
+small), their mode columns stay empty and ``mode_note`` says why.
 """
 
 from __future__ import annotations
@@ -65,6 +66,8 @@ class ModelSpec:
     path: str | None = None
     data: bytes | None = None
     trust: bool = False
+    #: The height model for height maps without an SEM image (None: none).
+    height: ModelSpec | None = None
 
 
 @dataclass(frozen=True)
@@ -227,29 +230,44 @@ def thread_counts() -> dict[str, int]:
     return out
 
 
-def remember_model(spec: ModelSpec, model) -> None:
-    """Put an already loaded model into this process's cache (no second load)."""
+def remember_model(spec: ModelSpec, model, height_model=None) -> None:
+    """Put already loaded models into this process's cache (no second load)."""
     with _MODEL_LOCK:
         _MODELS.clear()
         _MODELS[spec.sha256] = model
+        if spec.height is not None and height_model is not None:
+            _MODELS[spec.height.sha256] = height_model
+
+
+def _cached(spec: ModelSpec, keep: tuple[str, ...] = ()):
+    m = _MODELS.get(spec.sha256)
+    if m is None:
+        from fracto.modes.model import load_model
+
+        if spec.data is not None:
+            with tempfile.TemporaryDirectory(prefix="fracto-model-") as d:
+                p = Path(d) / "model.skops"
+                p.write_bytes(spec.data)
+                m = load_model(p, trust=spec.trust)
+        else:
+            m = load_model(spec.path, trust=spec.trust)
+        for k in [k for k in _MODELS if k not in keep]:
+            del _MODELS[k]
+        _MODELS[spec.sha256] = m
+    return m
 
 
 def _model(spec: ModelSpec):
     with _MODEL_LOCK:
-        m = _MODELS.get(spec.sha256)
-        if m is None:
-            from fracto.modes.model import load_model
+        return _cached(spec, (spec.height.sha256,) if spec.height is not None else ())
 
-            if spec.data is not None:
-                with tempfile.TemporaryDirectory(prefix="fracto-model-") as d:
-                    p = Path(d) / "model.skops"
-                    p.write_bytes(spec.data)
-                    m = load_model(p, trust=spec.trust)
-            else:
-                m = load_model(spec.path, trust=spec.trust)
-            _MODELS.clear()
-            _MODELS[spec.sha256] = m
-        return m
+
+def _height_model(spec: ModelSpec):
+    """The height model of `spec` (None without one), cached beside the image model."""
+    if spec.height is None:
+        return None
+    with _MODEL_LOCK:
+        return _cached(spec.height, (spec.sha256,))
 
 
 def init_worker(spec: ModelSpec) -> None:
@@ -264,6 +282,7 @@ def init_worker(spec: ModelSpec) -> None:
     # an initializer that raises would break the whole pool
     with contextlib.suppress(Exception):
         _model(spec)
+        _height_model(spec)
 
 
 def warm_up(spec: ModelSpec) -> int:
@@ -271,6 +290,7 @@ def warm_up(spec: ModelSpec) -> int:
     single_thread_worker()
     with contextlib.suppress(Exception):
         _model(spec)
+        _height_model(spec)
     return os.getpid()
 
 
@@ -391,8 +411,9 @@ def _striation(img: np.ndarray, res, px: float | None, seed: int) -> dict | None
     return sr.to_dict() if sr is not None else None
 
 
-def _score_height(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
+def _score_height(path: Path, task: ScoreTask, model, height_model=None) -> tuple[dict, bytes]:
     from fracto.io import PixelSize, read_height_map
+    from fracto.modes.pipeline import classify_height_map, is_height_model
     from fracto.surface.measure import measure_surface
 
     st = task.settings
@@ -409,23 +430,32 @@ def _score_height(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
         "valid_fraction": md["valid_fraction"],
         "fractions": None,
         "quality": None,
-        "mode_note": "the model does not classify height maps alone",
+        "mode_note": "no height model was given, and the model does not classify height maps",
     }
     label_map, classes = None, ()
-    import fracto.modes.pipeline as pipeline
-
-    classify_height = getattr(pipeline, "classify_height_map", None)
-    if getattr(model, "height_only_", False) and classify_height is not None:
-        res = classify_height(
-            z,
-            model,
-            pixel_size_um=hm.pixel_size.x_um if hm.pixel_size.calibrated else None,
-            seed=int(st.get("seed", 0)),
-            n_boot=int(st.get("n_boot", 1000)),
-        )
-        out["fractions"] = _fractions_dict(res, fraction_names(model))
-        out.pop("mode_note")
-        label_map, classes = res.label_map, res.classes
+    hmodel = height_model if height_model is not None else model
+    if is_height_model(hmodel):
+        try:
+            res = classify_height_map(
+                z,
+                hmodel,
+                pixel_size_um=hm.pixel_size.x_um if hm.pixel_size.calibrated else None,
+                threshold=st.get("threshold"),
+                seed=int(st.get("seed", 0)),
+                n_boot=int(st.get("n_boot", 1000)),
+            )
+        except FractoInputError as exc:  # the roughness still stands
+            out["mode_note"] = f"not classified: {exc}"
+        else:
+            out["fractions"] = _fractions_dict(res, fraction_names(hmodel))
+            q = res.quality.to_dict()
+            q.pop("limits", None)
+            out["quality"] = q
+            out["scale"] = res.features.scale.to_dict()
+            out["threshold"] = res.threshold
+            out["mode_input"] = "height map alone (rendered view + height features)"
+            out.pop("mode_note")
+            label_map, classes = res.label_map, res.classes
     thumb = thumbnail_jpeg(
         z, label_map, classes, max_side_px=int(st.get("thumbnail_px", THUMBNAIL_PX))
     )
@@ -446,15 +476,16 @@ def score_task(task: ScoreTask, spec: ModelSpec) -> dict:
     c0 = time.process_time()
     try:
         model = _model(spec)
+        hmodel = _height_model(spec) if task.kind == "height" else None
         if task.data is not None:
             with tempfile.TemporaryDirectory(prefix="fracto-item-") as d:
                 p = Path(d) / Path(task.name).name
                 p.write_bytes(task.data)
                 if task.sidecar is not None:
                     (p.parent / (p.name + ".json")).write_bytes(task.sidecar)
-                result, thumb = _score(p, task, model)
+                result, thumb = _score(p, task, model, hmodel)
         else:
-            result, thumb = _score(Path(task.path), task, model)
+            result, thumb = _score(Path(task.path), task, model, hmodel)
         status, error = "ok", None
     except FractoInputError as exc:
         result, thumb, status, error = None, None, "error", str(exc)
@@ -475,11 +506,11 @@ def score_task(task: ScoreTask, spec: ModelSpec) -> dict:
     }
 
 
-def _score(path: Path, task: ScoreTask, model) -> tuple[dict, bytes]:
+def _score(path: Path, task: ScoreTask, model, height_model=None) -> tuple[dict, bytes]:
     if task.kind == "sem":
         return _score_sem(path, task, model)
     if task.kind == "height":
-        return _score_height(path, task, model)
+        return _score_height(path, task, model, height_model)
     raise FractoInputError(f"'{task.name}' is of kind '{task.kind}', which batch does not score.")
 
 
@@ -602,6 +633,9 @@ class Scorer:
         spec = self.spec
         if spec.data is None:
             spec = replace(spec, data=Path(spec.path).read_bytes(), path=None)
+        if spec.height is not None and spec.height.data is None:
+            h = spec.height
+            spec = replace(spec, height=replace(h, data=Path(h.path).read_bytes(), path=None))
         self._spec_f = self.client.scatter(spec, broadcast=True)
         # one warm-up task per worker: one thread and the model loaded before any image
         self._warm = [

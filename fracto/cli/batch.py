@@ -41,6 +41,13 @@ def _transition_line(tr: dict) -> str:
     type=click.Path(dir_okay=False),
     help="Mode model file (.skops); default: fracto's default model.",
 )
+@click.option(
+    "--height-model",
+    "height_model_path",
+    type=click.Path(dir_okay=False),
+    help="Height model (.skops) for height maps without an SEM image; default: fracto's "
+    "height model.",
+)
 @click.option("--trust", is_flag=True, help="Load a model holding types fracto does not expect.")
 @click.option(
     "--transition-temperature",
@@ -62,6 +69,7 @@ def command(
     jobs,
     scheduler,
     model_path,
+    height_model_path,
     trust,
     transition_temperature,
     no_report,
@@ -112,6 +120,7 @@ def command(
             jobs=jobs,
             scheduler=scheduler,
             model_path=model_path,
+            height_model_path=height_model_path,
             trust=trust,
             transition_temperature_C=t_tr,
             report=not no_report,

@@ -1,4 +1,11 @@
-"""``fracto classify``: mode map and mode fractions of an SEM fractograph."""
+"""``fracto classify``: mode map and mode fractions of an SEM fractograph or a height map.
+
+A height map given alone (``--height-only``, or a file that is a height map:
+``.npy``, ``.sdf``, ``.stl``, text grids, floating-point TIFF) is classified
+through its rendered SEM view with the height model
+(:func:`fracto.modes.pipeline.classify_height_map`); the JSON's ``input``
+says which path was taken and why.
+"""
 
 from __future__ import annotations
 
@@ -7,7 +14,9 @@ import click
 from fracto.classes import MODES, UNCLASSIFIED
 
 
-def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_size, settings):
+def _result_dict(
+    res, *, image_path, image_info, model_path, sha, model, pixel_size, settings, input_info
+):
     from fracto import CAUTION, __version__
 
     order = (*MODES, *[c for c in res.classes if c not in MODES], UNCLASSIFIED)
@@ -22,6 +31,7 @@ def _result_dict(res, *, image_path, image_info, model_path, sha, model, pixel_s
     ps = pixel_size.to_dict()
     ps["scale"] = res.features.scale.to_dict()
     return {
+        "input": input_info,
         "fractions": fractions,
         "fractions_uncorrected": fractions_uncorrected,
         "correction": res.correction,
@@ -77,6 +87,7 @@ def format_table(d: dict) -> str:
         f"clipped {q['clipped_fraction']:.1%}, noise {q['noise_sigma']:.3f}"
     )
     lines.extend(f"  - {r}" for r in q["reasons"])
+    lines.append(f"input: {d['input']['kind']} ({d['input']['chosen_by']})")
     lines.append(f"scale: {d['pixel_size']['scale']['note']}")
     lines.append(f"model: {d['model']['path']} (sha256 {d['model']['sha256'][:12]}...)")
     lines.append(d["caution"])
@@ -87,6 +98,12 @@ def format_table(d: dict) -> str:
 @click.argument("image", type=click.Path(dir_okay=False))
 @click.option(
     "--height-map", type=click.Path(dir_okay=False), help="Height map of the same field."
+)
+@click.option(
+    "--height-only",
+    is_flag=True,
+    help="IMAGE is a height map without an SEM image: classify its rendered view with the "
+    "height model (also chosen when IMAGE is a height-map file).",
 )
 @click.option("--pixel-size", help="Pixel size, e.g. 0.1um (overrides the file's calibration).")
 @click.option("--banner", default="auto", show_default=True, help="auto, none, bottom:N or top:N.")
@@ -122,6 +139,7 @@ def format_table(d: dict) -> str:
 def command(
     image,
     height_map,
+    height_only,
     pixel_size,
     banner,
     scale_bar,
@@ -156,30 +174,61 @@ def command(
     if explain_path and not explain_path.lower().endswith((".csv", ".json")):
         raise FractoInputError(f"The explanation file '{explain_path}' must end in .csv or .json.")
     ps_given = PixelSize.parse(pixel_size) if pixel_size else None
-    mpath = model_path or default_model_path()
-    model = load_model(mpath, trust=trust)
-    img, ps, info = read_grey_image(image, banner=banner, pixel_size=ps_given, scale_bar=scale_bar)
-    height = None
-    if height_map:
-        hm = read_height_map(height_map, pixel_size=ps_given)
+    input_info = _input_path(image, height_only=height_only, height_map=height_map)
+    view = None
+    if input_info["kind"] == "height map":
+        from fracto.modes.heightview import default_height_model_path
+        from fracto.modes.pipeline import classify_height_map
+
+        mpath = model_path or default_height_model_path()
+        model = load_model(mpath, trust=trust)
+        hm = read_height_map(image, pixel_size=ps_given)
+        ps = hm.pixel_size
         height = np.asarray(hm.z_um, dtype=np.float64)
-        if not ps.calibrated and hm.pixel_size.calibrated:
-            ps = hm.pixel_size
-        if height.shape != img.shape:
-            raise FractoInputError(
-                f"The height map ({height.shape[1]} x {height.shape[0]} px) and the image "
-                f"({img.shape[1]} x {img.shape[0]} px) must cover the same grid."
-            )
-    res = classify_image(
-        img,
-        model,
-        pixel_size_um=ps.x_um if ps.calibrated else None,
-        height_um=height,
-        threshold=threshold,
-        seed=seed,
-        n_boot=n_boot,
-        correction=not no_correction,
-    )
+        res = classify_height_map(
+            height,
+            model,
+            pixel_size_um=ps.x_um if ps.calibrated else None,
+            threshold=threshold,
+            seed=seed,
+            n_boot=n_boot,
+            correction=not no_correction,
+        )
+        info = {"shape": list(height.shape), "banner": None}
+        input_info["valid_fraction"] = hm.valid_fraction
+        input_info["view"] = res.settings["view"]
+        if overlay:
+            from fracto.modes.heightview import render_view
+
+            view = render_view(height, ps.x_um)
+    else:
+        mpath = model_path or default_model_path()
+        model = load_model(mpath, trust=trust)
+        img, ps, info = read_grey_image(
+            image, banner=banner, pixel_size=ps_given, scale_bar=scale_bar
+        )
+        height = None
+        if height_map:
+            hm = read_height_map(height_map, pixel_size=ps_given)
+            height = np.asarray(hm.z_um, dtype=np.float64)
+            if not ps.calibrated and hm.pixel_size.calibrated:
+                ps = hm.pixel_size
+            if height.shape != img.shape:
+                raise FractoInputError(
+                    f"The height map ({height.shape[1]} x {height.shape[0]} px) and the image "
+                    f"({img.shape[1]} x {img.shape[0]} px) must cover the same grid."
+                )
+        res = classify_image(
+            img,
+            model,
+            pixel_size_um=ps.x_um if ps.calibrated else None,
+            height_um=height,
+            threshold=threshold,
+            seed=seed,
+            n_boot=n_boot,
+            correction=not no_correction,
+        )
+        view = img
     settings = {
         "threshold": res.threshold,
         "banner": banner,
@@ -197,6 +246,7 @@ def command(
         model=model,
         pixel_size=ps,
         settings=settings,
+        input_info=input_info,
     )
     if explain_path:
         from fracto.modes.explain import explain_regions, write_explanation
@@ -217,11 +267,11 @@ def command(
         fr = {k: v["value"] for k, v in d["fractions"].items()}
         conf = None
         if overlay_confidence:
-            conf = paint(res.block_probabilities.max(axis=2), res.features.block_px, img.shape)
+            conf = paint(res.block_probabilities.max(axis=2), res.features.block_px, view.shape)
         note = "corrected fractions" if d["correction"].get("applied") else "counted fractions"
         write_overlay(
             overlay,
-            img,
+            view,
             res.label_map,
             res.classes,
             fractions=fr,
@@ -232,3 +282,40 @@ def command(
     if labels:
         write_labels(labels, res.label_map, res.classes)
     click.echo(dumps_json(d) if as_json else format_table(d))
+
+
+def _input_path(image: str, *, height_only: bool, height_map: str | None) -> dict:
+    """Which path classifies IMAGE (SEM image or height map alone) and why."""
+    from pathlib import Path
+
+    from fracto.campaign.manifest import kind_of_file
+    from fracto.errors import FractoInputError
+
+    kind = None
+    if Path(image).is_file():
+        try:
+            kind = kind_of_file(image)
+        except FractoInputError:
+            kind = None  # left to the SEM reader, which names the problem
+    if height_only:
+        if height_map:
+            raise FractoInputError(
+                "With --height-only the height map is the input file itself; "
+                "leave out --height-map."
+            )
+        if kind == "sem":
+            raise FractoInputError(
+                f"'{image}' is an SEM image, not a height map; leave out --height-only."
+            )
+        return {"kind": "height map", "chosen_by": "--height-only"}
+    if kind == "height":
+        if height_map:
+            raise FractoInputError(
+                f"'{image}' is a height map, not an SEM image; give it alone (the height "
+                "model classifies its rendered view) or give the SEM image with --height-map."
+            )
+        return {
+            "kind": "height map",
+            "chosen_by": "the file is a height map (extension or floating-point TIFF)",
+        }
+    return {"kind": "sem image", "chosen_by": "the file is an image"}

@@ -22,6 +22,28 @@ the model can later be adapted without regenerating the synthetic fields.
 The default model is scale-free (``scale_um=None``): its filter scales follow
 each image's own texture scale, because a physical scale says nothing about
 the grain size of an unknown material.
+
+The height model, for height maps without an SEM image, is built with::
+
+    python -m fracto.modes.default_model --height --out models/
+
+from the generator's height maps of ``--fields`` fields (seeds from
+:data:`HEIGHT_SEED_BASE`, the same grain-size, pixel-size and mode-mixture
+draws as the image model) with height-measurement nuisances (a random tilt,
+white height noise on about half of the maps, dropped-out points on about a
+third): each map goes through
+:func:`fracto.modes.heightview.height_region_features` — the rendered view
+with fixed settings plus the height features — the very function
+:func:`fracto.modes.pipeline.classify_height_map` predicts with. It writes
+``fracto-height.skops``, ``fracto-height.card.json`` and
+``fracto-height.regions.npz``. The height model is scale-free too although
+a height map always carries its pixel size: the pixel size says how large a
+pixel is, not how large the grains are, so a physical texture scale would
+fix the filter scales to one material's grain size; the view is rendered
+after an isotropic rescaling to a reference pixel, and the height features
+are slopes, curvatures and heights relative to the texture scale, so the
+whole input is free of the magnification. The pixel size is still needed:
+for the slopes of the height features and the rendering.
 """
 
 from __future__ import annotations
@@ -44,6 +66,8 @@ TRAIN_SEED_BASE = 10_000
 GRAIN_PX_RANGE = (5.0, 150.0)
 #: Range of pixel sizes in µm for training fields (drawn log-uniform).
 PIXEL_UM_RANGE = (0.07, 0.14)
+#: Training-field seeds of the height model start here (bench seeds start at 900000).
+HEIGHT_SEED_BASE = 20_000
 #: Most training regions kept in fracto-default.regions.npz.
 MAX_SAVED_REGIONS = 10_000
 
@@ -245,6 +269,213 @@ def build_default_model(
     return card
 
 
+def height_nuisance(z: np.ndarray, px: float, rng: np.random.Generator) -> np.ndarray:
+    """Measurement nuisances of a height map: tilt, white noise, dropped-out points.
+
+    A random plane of slope up to tan 5° in a random direction (always); white
+    Gaussian height noise of standard deviation ``px · U(0, 0.05)`` (a slope
+    noise up to about 0.07) on half of the maps; on a third of the maps a
+    share ``U(0, 0.03)`` of the points set to NaN (not measured). Common
+    practice for profilometer data, no source.
+    """
+    ny, nx = z.shape
+    yy, xx = np.mgrid[0:ny, 0:nx] * px
+    az = rng.uniform(0.0, 2 * np.pi)
+    slope = np.tan(np.radians(rng.uniform(0.0, 5.0)))
+    out = z + slope * (np.cos(az) * xx + np.sin(az) * yy)
+    if rng.uniform() < 0.5:
+        out = out + px * rng.uniform(0.0, 0.05) * rng.standard_normal(z.shape)
+    if rng.uniform() < 1.0 / 3.0:
+        out = np.where(rng.uniform(size=z.shape) < rng.uniform(0.0, 0.03), np.nan, out)
+    return out
+
+
+def synthetic_height_field(
+    seed: int,
+    *,
+    size: int = 512,
+    grain_px: float | None = None,
+    modes: dict[str, float] | None = None,
+    pixel_size_um: float = 0.1,
+    nuisance: bool = True,
+):
+    """One synthetic height map and its true label image.
+
+    The grain size and mode mixture are drawn as in :func:`synthetic_field`;
+    the generator's SEM rendering is not used (the cheap secant-only render).
+
+    Returns
+    -------
+    (height float64 µm, labels uint8 (CLASSES indices), meta dict)
+    """
+    from fracto.synth import GrainSize, RenderSettings, make_surface
+
+    rng = np.random.default_rng(seed)
+    if grain_px is None:
+        grain_px = float(np.exp(rng.uniform(*np.log(GRAIN_PX_RANGE))))
+    if modes is None:
+        modes = random_modes(rng)
+    surf = make_surface(
+        size=size,
+        pixel_size_um=pixel_size_um,
+        modes=modes,
+        grain_size=GrainSize(mean_um=grain_px * pixel_size_um),
+        render=RenderSettings.secant_only(),
+        seed=seed,
+    )
+    lab = np.asarray(surf.labels, dtype=np.uint8)
+    z = np.asarray(surf.height_um, dtype=np.float64)[: lab.shape[0], : lab.shape[1]]
+    if nuisance:
+        z = height_nuisance(z, pixel_size_um, np.random.default_rng([seed, 2]))
+    meta = {
+        "seed": seed,
+        "grain_px": grain_px,
+        "modes": modes,
+        "pixel_size_um": pixel_size_um,
+        "nuisance": nuisance,
+    }
+    return z, lab, meta
+
+
+def height_training_set(
+    n_fields: int,
+    *,
+    seed: int = 0,
+    size: int = 512,
+    max_regions: int | None = 500,
+    progress: bool = False,
+):
+    """Region features (view + height) and labels of the height model's training maps.
+
+    Field ``i`` has seed ``HEIGHT_SEED_BASE + 1000 seed + i``; its pixel size is
+    drawn log-uniform from :data:`PIXEL_UM_RANGE` by a generator seeded with
+    ``(field seed, 1)``.
+    """
+    from fracto.modes.heightview import height_region_features
+    from fracto.modes.regions import tile_labels_from_mask
+    from fracto.modes.training import TrainingSet
+
+    rng = np.random.default_rng(seed)
+    n_labels = len(MODES) + 1
+    parts, names = [], None
+    t0 = time.perf_counter()
+    for i in range(n_fields):
+        s = HEIGHT_SEED_BASE + 1000 * seed + i
+        px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+        z, lab, meta = synthetic_height_field(s, size=size, pixel_size_um=px)
+        _, f = height_region_features(z, px)
+        names = f.names
+        tl = tile_labels_from_mask(lab, f.tile_grid, f.block_px, n_labels)
+        keep = np.nonzero(tl > 0)[0]
+        if max_regions is not None and keep.size > max_regions:
+            keep = np.sort(rng.choice(keep, size=max_regions, replace=False))
+        if keep.size:
+            name = f"synth-height-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+            parts.append((f.X[keep], np.asarray(MODES)[tl[keep] - 1], name))
+        if progress and (i + 1) % 8 == 0:
+            print(f"  {i + 1}/{n_fields} maps ({time.perf_counter() - t0:.0f} s)", flush=True)
+    ts = TrainingSet.concatenate(parts, list(names or []))
+    ts.summary["classes"] = list(MODES)
+    return ts
+
+
+def mark_height_model(model) -> None:
+    """Record on a fitted model that it takes height maps alone, and the view it learned."""
+    from fracto.modes.heightview import HEIGHT_VIEW_VERSION, view_fingerprint
+
+    model.height_only_ = True
+    model.height_view_version_ = HEIGHT_VIEW_VERSION
+    model.height_view_fingerprint_ = view_fingerprint()
+
+
+def build_height_model(
+    out_dir: str | Path,
+    *,
+    n_fields: int = 96,
+    size: int = 512,
+    seed: int = 0,
+    cv_folds: int = 4,
+    n_threads: int | None = 1,
+    max_regions: int | None = 500,
+    progress: bool = True,
+) -> dict:
+    """Train the height-input model on synthetic height maps and write model, card, regions.
+
+    Returns
+    -------
+    dict
+        The model card.
+    """
+    from fracto.io.safe import write_json_atomic
+    from fracto.modes.heightview import HEIGHT_MODEL_NAME, view_settings
+    from fracto.modes.model import load_model, save_model
+    from fracto.modes.training import format_scores, train_and_save
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    t0 = time.perf_counter()
+    ts = height_training_set(
+        n_fields, seed=seed, size=size, max_regions=max_regions, progress=progress
+    )
+    ts.summary.update(
+        {
+            "source": "fracto.synth height maps only (no real data)",
+            "input": "height map alone: rendered view (fracto.modes.heightview) + height features",
+            "n_fields": n_fields,
+            "field_size_px": size,
+            "grain_px_range": list(GRAIN_PX_RANGE),
+            "pixel_size_um_range": list(PIXEL_UM_RANGE),
+            "pixel_size_draw": "log-uniform, generator seeded with (field seed, 1)",
+            "field_seeds": [
+                HEIGHT_SEED_BASE + 1000 * seed,
+                HEIGHT_SEED_BASE + 1000 * seed + n_fields - 1,
+            ],
+            "nuisance": "fracto.modes.default_model.height_nuisance, seeded with (field seed, 2)",
+            "modes": "random mixtures of 1-4 modes per field",
+        }
+    )
+    if progress:
+        print(f"features of {ts.summary['n_regions']} regions ({time.perf_counter() - t0:.0f} s)")
+    path = out / HEIGHT_MODEL_NAME
+    card, scores = train_and_save(
+        ts,
+        path,
+        classes=MODES,
+        model_params={"n_threads": n_threads, "uses_height": True},
+        n_splits=cv_folds,
+        seed=seed,
+        extra_card={
+            "command": "python -m fracto.modes.default_model --height --out models/",
+            "build_seconds": None,
+        },
+    )
+    # the fitted model learns that it takes height maps alone, and which view it saw
+    model = load_model(path)
+    mark_height_model(model)
+    card["sha256"] = save_model(model, path)
+    card["input"] = "height map alone"
+    card["height_view"] = {
+        **view_settings(),
+        "fingerprint": model.height_view_fingerprint_,
+    }
+    regions_path = out / HEIGHT_MODEL_NAME.replace(".skops", ".regions.npz")
+    n_saved = save_regions(regions_path, ts, MODES, seed=seed)
+    card["saved_regions"] = {
+        "file": regions_path.name,
+        "n_regions": n_saved,
+        "selection": f"seeded random subset (seed {seed}) of the training regions",
+        "keys": ["X", "y", "groups", "feature_names", "classes", "feature_set_version"],
+    }
+    card["build_seconds"] = round(time.perf_counter() - t0, 1)
+    card_path = Path(card.pop("card_path"))
+    write_json_atomic(card_path, card)
+    if progress:
+        print(format_scores(scores))
+        size_mb = path.stat().st_size / 1e6
+        print(f"wrote {path} ({size_mb:.1f} MB) and {card_path} in {card['build_seconds']} s")
+    return card
+
+
 def _main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--out", default="models/", help="output folder (default models/)")
@@ -252,11 +483,17 @@ def _main(argv: list[str] | None = None) -> int:
     p.add_argument("--size", type=int, default=512, help="field side in pixels")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--cv", type=int, default=4, help="grouped cross-validation folds")
+    p.add_argument(
+        "--height",
+        action="store_true",
+        help="build the height-map model (fracto-height.skops) instead of the image model",
+    )
     a = p.parse_args(argv)
     if not (a.fields >= 4 and a.size >= 128 and math.isfinite(a.size)):
         print("fracto: need at least 4 fields of at least 128 px.", file=sys.stderr)
         return 2
-    build_default_model(a.out, n_fields=a.fields, size=a.size, seed=a.seed, cv_folds=a.cv)
+    build = build_height_model if a.height else build_default_model
+    build(a.out, n_fields=a.fields, size=a.size, seed=a.seed, cv_folds=a.cv)
     return 0
 
 

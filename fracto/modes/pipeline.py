@@ -1,8 +1,15 @@
-"""One call from an image (and height map) to a mode map and mode fractions."""
+"""One call from an image (and height map), or a height map alone, to a mode map and fractions.
+
+:func:`classify_image` takes an SEM image (with its height map when the model
+uses height features); :func:`classify_height_map` takes a height map alone,
+renders its SEM view with :mod:`fracto.modes.heightview` and needs a height
+model (``height_only_``, built by ``python -m fracto.modes.default_model
+--height``). Both return a :class:`ModeResult`.
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -141,11 +148,14 @@ def classify_image(
     img = np.asarray(image, dtype=np.float64)
     if img.ndim != 2:
         raise FractoInputError("The image must be a single grey channel.")
+    if is_height_model(model):
+        raise FractoInputError(
+            "This model classifies height maps alone (rendered views), not SEM images; "
+            "give it a height map (fracto classify MAP --height-only) or use an image model."
+        )
     if model.uses_height and height_um is None:
         raise FractoInputError("This model needs a height map; give --height-map.")
-    thr = model.threshold if threshold is None else float(threshold)
-    if not 0.0 <= thr <= 1.0:
-        raise FractoInputError(f"The threshold must lie between 0 and 1, not {thr}.")
+    thr = _threshold(model, threshold)
     quality = assess_quality(img)
     feats = region_features(
         img,
@@ -153,6 +163,158 @@ def classify_image(
         scale_um=model.scale_um,
         height_um=height_um if model.uses_height else None,
     )
+    return _finish(
+        img,
+        feats,
+        quality,
+        model,
+        thr,
+        seed=seed,
+        n_boot=n_boot,
+        block_regions=block_regions,
+        correction=correction,
+        conditioning=conditioning,
+    )
+
+
+def is_height_model(model: ModeClassifier) -> bool:
+    """The model classifies height maps alone (trained on rendered views + height features)."""
+    return bool(getattr(model, "height_only_", False))
+
+
+def _threshold(model: ModeClassifier, threshold: float | None) -> float:
+    thr = model.threshold if threshold is None else float(threshold)
+    if not 0.0 <= thr <= 1.0:
+        raise FractoInputError(f"The threshold must lie between 0 and 1, not {thr}.")
+    return thr
+
+
+#: Largest share of non-measured points of a height map still fit to score
+#: (common practice, no source: a tenth of the field filled by nearest heights).
+MAX_MISSING_FRACTION = 0.10
+
+
+def classify_height_map(
+    height_um: np.ndarray,
+    model: ModeClassifier,
+    *,
+    pixel_size_um: float | None,
+    threshold: float | None = None,
+    seed: int = 0,
+    n_boot: int = 1000,
+    block_regions: int | None = None,
+    correction: bool = True,
+    conditioning: str | None = CONDITIONING,
+) -> ModeResult:
+    """Classify the regions of a height map alone (no SEM image) and estimate fractions.
+
+    The SEM view is rendered with :func:`fracto.modes.heightview.render_view`
+    (the function the height model was trained with), and the region
+    features of the view and of the levelled heights go to the model.
+
+    Parameters
+    ----------
+    height_um : ndarray, shape (ny, nx)
+        Heights in µm (NaN = not measured).
+    model : ModeClassifier
+        A height model (``height_only_``).
+    pixel_size_um : float or None
+        Lateral pixel size in µm; required (None raises one sentence).
+    threshold, seed, n_boot, block_regions, correction, conditioning :
+        As for :func:`classify_image`.
+
+    Returns
+    -------
+    ModeResult
+        ``settings["input"]`` is ``"height map"`` and ``settings["view"]`` the
+        view recipe; the quality is that of the rendered view, and a map with
+        more than :data:`MAX_MISSING_FRACTION` of its points not measured is
+        not fit to score.
+
+    References
+    ----------
+    Reimer (1998) for the view, see fracto.modes.heightview; Künsch (1989) and
+    Forman (2008) as for :func:`classify_image`.
+    """
+    from fracto.modes.heightview import (
+        FINGERPRINT_TOLERANCE,
+        HEIGHT_VIEW_VERSION,
+        height_region_features,
+        view_fingerprint,
+    )
+
+    if not is_height_model(model):
+        raise FractoInputError(
+            "This model classifies SEM images, not height maps alone; use the height model "
+            "(models/fracto-height.skops) or give an SEM image."
+        )
+    made_with = getattr(model, "height_view_version_", None)
+    if made_with != HEIGHT_VIEW_VERSION:
+        raise FractoInputError(
+            f"The height model was trained on views '{made_with}' but this fracto renders "
+            f"'{HEIGHT_VIEW_VERSION}'; rebuild it with "
+            "'python -m fracto.modes.default_model --height --out models/'."
+        )
+    stored = getattr(model, "height_view_fingerprint_", None)
+    if stored is None or not np.allclose(
+        stored, view_fingerprint(), rtol=0.0, atol=FINGERPRINT_TOLERANCE
+    ):
+        raise FractoInputError(
+            "The height model was trained on views of another version of the SEM renderer; "
+            "rebuild it with 'python -m fracto.modes.default_model --height --out models/'."
+        )
+    if pixel_size_um is None:
+        raise FractoInputError(
+            "The height map has no lateral calibration; give its pixel size with --pixel-size."
+        )
+    h = np.asarray(height_um, dtype=np.float64)
+    thr = _threshold(model, threshold)
+    view, feats = height_region_features(h, pixel_size_um, scale_um=model.scale_um)
+    quality = assess_quality(view)
+    missing = float(1.0 - np.isfinite(h).mean())
+    if missing > MAX_MISSING_FRACTION:
+        quality = replace(
+            quality,
+            fit_to_score=False,
+            reasons=(
+                *quality.reasons,
+                f"{missing:.1%} of the height map is not measured "
+                f"(limit {MAX_MISSING_FRACTION:.0%}).",
+            ),
+        )
+    res = _finish(
+        view,
+        feats,
+        quality,
+        model,
+        thr,
+        seed=seed,
+        n_boot=n_boot,
+        block_regions=block_regions,
+        correction=correction,
+        conditioning=conditioning,
+    )
+    from fracto.modes.heightview import view_settings
+
+    res.settings.update(
+        {"input": "height map", "view": view_settings(), "missing_fraction": missing}
+    )
+    return res
+
+
+def _finish(
+    img: np.ndarray,
+    feats: RegionFeatures,
+    quality: ImageQuality,
+    model: ModeClassifier,
+    thr: float,
+    *,
+    seed: int,
+    n_boot: int,
+    block_regions: int | None,
+    correction: bool,
+    conditioning: str | None,
+) -> ModeResult:
     p_tiles = model.predict_proba(feats.X)
     p_blocks = tiles_to_blocks(p_tiles, feats.tile_grid)
     labels = block_labels(p_blocks, thr)
@@ -211,6 +373,7 @@ def classify_image(
             "block_regions": fractions.block_regions,
             "correction": bool(info["applied"]),
             "conditioning": conditioning,
+            "input": "sem image",
         },
         fractions_uncorrected=counted,
         correction=info,
