@@ -37,14 +37,29 @@ SEED_BASE = 900_000
 
 
 def evaluate(model, n_fields: int, size: int) -> dict:
+    """Score the image model on ``n_fields`` held-out synthetic fractographs."""
+
+    def field(i: int, seed: int, grain: float):
+        img, lab, _ = synthetic_field(seed, size=size, grain_px=grain)
+        return classify_image(img, model, seed=0, n_boot=200), lab
+
+    return score_fields(field, n_fields, word="field")
+
+
+def score_fields(classify_field, n_fields: int, *, word: str) -> dict:
+    """Region accuracy, per-mode recall and fraction MAE over held-out synthetic fields.
+
+    ``classify_field(i, seed, grain_px)`` returns (ModeResult, true label image) for
+    field ``i`` (seed ``SEED_BASE + i``, grain size ``GRAIN_PX[i % 6]``); ``word``
+    names a field in the printed lines.
+    """
     k = len(MODES)
     conf = np.zeros((k, k + 1), int)  # last column: unclassified
     abs_err = []
     for i in range(n_fields):
         seed = SEED_BASE + i
         grain = GRAIN_PX[i % len(GRAIN_PX)]
-        img, lab, _ = synthetic_field(seed, size=size, grain_px=grain)
-        res = classify_image(img, model, seed=0, n_boot=200)
+        res, lab = classify_field(i, seed, grain)
         f = res.features
         hist = mask_block_histogram(lab, f.block_grid, f.block_px, k + 1)[..., 1:]
         tot = hist.sum(axis=2)
@@ -62,7 +77,7 @@ def evaluate(model, n_fields: int, size: int) -> dict:
         err = [abs(fr.get(m, {"value": 0.0})["value"] - truth[j]) for j, m in enumerate(MODES)]
         abs_err.append(err)
         print(
-            f"  field seed {seed} grain {grain:>5.0f} px: "
+            f"  {word} seed {seed} grain {grain:>5.0f} px: "
             + " ".join(
                 f"{m[:5]} {truth[j]:.2f}->{fr.get(m, {'value': 0})['value']:.2f}"
                 for j, m in enumerate(MODES)
@@ -77,6 +92,20 @@ def evaluate(model, n_fields: int, size: int) -> dict:
     }
     mae = dict(zip(MODES, np.mean(abs_err, axis=0), strict=True))
     return {"region_accuracy": acc, "recall": recall, "fraction_mae": mae, "confusion": conf}
+
+
+def print_scores(r: dict) -> None:
+    """Print what :func:`score_fields` returns, with the targets."""
+    print(f"region accuracy {r['region_accuracy']:.3f}  (target >= 0.90)")
+    print("per-mode recall " + ", ".join(f"{m} {v:.3f}" for m, v in r["recall"].items()))
+    print(
+        "fraction MAE    "
+        + ", ".join(f"{m} {v:.3f}" for m, v in r["fraction_mae"].items())
+        + "  (target <= 0.05 each)"
+    )
+    print("confusion (rows true, columns predicted + unclassified):")
+    for m, row in zip(MODES, r["confusion"], strict=True):
+        print(f"  {m:<14}" + "".join(f"{v:>8d}" for v in row))
 
 
 def timing(model) -> tuple[float, float]:
@@ -105,17 +134,7 @@ def main(argv=None) -> int:
     path = a.model or default_model_path()
     model = load_model(path)
     print(f"model {path}")
-    r = evaluate(model, a.fields, a.size)
-    print(f"region accuracy {r['region_accuracy']:.3f}  (target >= 0.90)")
-    print("per-mode recall " + ", ".join(f"{m} {v:.3f}" for m, v in r["recall"].items()))
-    print(
-        "fraction MAE    "
-        + ", ".join(f"{m} {v:.3f}" for m, v in r["fraction_mae"].items())
-        + "  (target <= 0.05 each)"
-    )
-    print("confusion (rows true, columns predicted + unclassified):")
-    for m, row in zip(MODES, r["confusion"], strict=True):
-        print(f"  {m:<14}" + "".join(f"{v:>8d}" for v in row))
+    print_scores(evaluate(model, a.fields, a.size))
     if not a.no_timing:
         t_cls, t_fft = timing(model)
         print(

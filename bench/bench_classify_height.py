@@ -28,65 +28,28 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 
 import numpy as np
+from bench_classify import SEED_BASE, _time, print_scores, score_fields
 
-from fracto.classes import MODES
 from fracto.modes.default_model import synthetic_height_field
 from fracto.modes.heightview import default_height_model_path
 from fracto.modes.model import load_model
 from fracto.modes.pipeline import classify_height_map
-from fracto.modes.regions import mask_block_histogram
 
-GRAIN_PX = (7.0, 12.0, 20.0, 35.0, 60.0, 100.0)
-SEED_BASE = 900_000
 PIXEL_UM = 0.1
 
 
 def evaluate(model, n_fields: int, size: int, *, nuisance: bool = True) -> dict:
-    k = len(MODES)
-    conf = np.zeros((k, k + 1), int)  # last column: unclassified
-    abs_err = []
-    for i in range(n_fields):
-        seed = SEED_BASE + i
-        grain = GRAIN_PX[i % len(GRAIN_PX)]
+    """Score the height model on ``n_fields`` held-out synthetic height maps."""
+
+    def field(i: int, seed: int, grain: float):
         z, lab, _ = synthetic_height_field(
             seed, size=size, grain_px=grain, pixel_size_um=PIXEL_UM, nuisance=nuisance
         )
-        res = classify_height_map(z, model, pixel_size_um=PIXEL_UM, seed=0, n_boot=200)
-        f = res.features
-        hist = mask_block_histogram(lab, f.block_grid, f.block_px, k + 1)[..., 1:]
-        tot = hist.sum(axis=2)
-        best = hist.argmax(axis=2)
-        clear = (tot > 0) & (hist.max(axis=2) >= 0.75 * np.maximum(tot, 1))
-        classes = list(res.classes)
-        pred = res.block_labels  # index into res.classes, -1 unclassified
-        pred_mode = np.array(
-            [[MODES.index(classes[p]) if p >= 0 else k for p in row] for row in pred]
-        )
-        for t, p in zip(best[clear], pred_mode[clear], strict=True):
-            conf[t, p] += 1
-        fr = res.fractions.to_dict()
-        truth = [float((lab == j + 1).mean()) for j in range(k)]
-        err = [abs(fr.get(m, {"value": 0.0})["value"] - truth[j]) for j, m in enumerate(MODES)]
-        abs_err.append(err)
-        print(
-            f"  map seed {seed} grain {grain:>5.0f} px: "
-            + " ".join(
-                f"{m[:5]} {truth[j]:.2f}->{fr.get(m, {'value': 0})['value']:.2f}"
-                for j, m in enumerate(MODES)
-            )
-            + f"  uncl {fr['unclassified']['value']:.2f}",
-            flush=True,
-        )
-    acc = np.trace(conf[:, :k]) / max(conf.sum(), 1)
-    recall = {
-        m: (conf[j, j] / conf[j].sum() if conf[j].sum() else float("nan"))
-        for j, m in enumerate(MODES)
-    }
-    mae = dict(zip(MODES, np.mean(abs_err, axis=0), strict=True))
-    return {"region_accuracy": acc, "recall": recall, "fraction_mae": mae, "confusion": conf}
+        return classify_height_map(z, model, pixel_size_um=PIXEL_UM, seed=0, n_boot=200), lab
+
+    return score_fields(field, n_fields, word="map")
 
 
 def timing(model) -> tuple[float, float]:
@@ -104,12 +67,6 @@ def timing(model) -> tuple[float, float]:
     return t_cls, t_fft
 
 
-def _time(fn) -> float:
-    t = time.perf_counter()
-    fn()
-    return time.perf_counter() - t
-
-
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--model", default=None)
@@ -122,17 +79,7 @@ def main(argv=None) -> int:
     model = load_model(path)
     print(f"model {path}; load average {os.getloadavg()[0]:.2f}")
     print(f"maps: {a.fields} x {a.size} px, seeds {SEED_BASE}+, nuisances {not a.clean}")
-    r = evaluate(model, a.fields, a.size, nuisance=not a.clean)
-    print(f"region accuracy {r['region_accuracy']:.3f}  (target >= 0.90)")
-    print("per-mode recall " + ", ".join(f"{m} {v:.3f}" for m, v in r["recall"].items()))
-    print(
-        "fraction MAE    "
-        + ", ".join(f"{m} {v:.3f}" for m, v in r["fraction_mae"].items())
-        + "  (target <= 0.05 each)"
-    )
-    print("confusion (rows true, columns predicted + unclassified):")
-    for m, row in zip(MODES, r["confusion"], strict=True):
-        print(f"  {m:<14}" + "".join(f"{v:>8d}" for v in row))
+    print_scores(evaluate(model, a.fields, a.size, nuisance=not a.clean))
     if not a.no_timing:
         t_cls, t_fft = timing(model)
         print(

@@ -221,16 +221,15 @@ def test_saved_training_regions_load_without_pickle(tmp_path):
     # Contract of fracto-default.regions.npz: plain arrays (numpy.load with
     # allow_pickle=False), at most max_regions rows, the stated keys and feature version.
     from fracto.classes import MODES
-    from fracto.modes.default_model import save_regions
     from fracto.modes.features import FEATURE_SET_VERSION
-    from fracto.modes.training import TrainingSet
+    from fracto.modes.training import TrainingSet, save_training_regions
 
     rng = np.random.default_rng(6)
     names = feature_names()
     X = rng.normal(size=(50, len(names))).astype(np.float32)
     y = np.array(MODES)[rng.integers(0, 4, 50)]
     ts = TrainingSet(X, y, np.repeat(np.arange(5), 10), names)
-    n = save_regions(tmp_path / "r.npz", ts, MODES, max_regions=20, seed=1)
+    n = save_training_regions(tmp_path / "r.npz", ts, MODES, max_regions=20, seed=1)
     with np.load(tmp_path / "r.npz", allow_pickle=False) as z:
         assert set(z.files) == {
             "X",

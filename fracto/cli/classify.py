@@ -197,10 +197,7 @@ def command(
         info = {"shape": list(height.shape), "banner": None}
         input_info["valid_fraction"] = hm.valid_fraction
         input_info["view"] = res.settings["view"]
-        if overlay:
-            from fracto.modes.heightview import render_view
-
-            view = render_view(height, ps.x_um)
+        view = res.view
     else:
         mpath = model_path or default_model_path()
         model = load_model(mpath, trust=trust)

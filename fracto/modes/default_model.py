@@ -15,7 +15,7 @@ vary against the grain size) — extracts region features, scores the model by
 grouped cross-validation (by field), fits it on every field, and writes
 ``fracto-default.skops`` with ``fracto-default.card.json`` beside it, and
 ``fracto-default.regions.npz``: a seeded random subset (at most
-:data:`MAX_SAVED_REGIONS`) of the training regions (keys ``X``, ``y``,
+:data:`fracto.modes.training.MAX_SAVED_REGIONS`) of the training regions (keys ``X``, ``y``,
 ``groups``, ``feature_names``, ``classes``, ``feature_set_version``) from which
 the model can later be adapted without regenerating the synthetic fields.
 
@@ -59,6 +59,7 @@ from pathlib import Path
 import numpy as np
 
 from fracto.classes import MODES
+from fracto.modes.training import save_training_regions
 
 #: Training-field seeds start here; bench/bench_classify.py uses seeds from 900000.
 TRAIN_SEED_BASE = 10_000
@@ -68,8 +69,6 @@ GRAIN_PX_RANGE = (5.0, 150.0)
 PIXEL_UM_RANGE = (0.07, 0.14)
 #: Training-field seeds of the height model start here (bench seeds start at 900000).
 HEIGHT_SEED_BASE = 20_000
-#: Most training regions kept in fracto-default.regions.npz.
-MAX_SAVED_REGIONS = 10_000
 
 
 def random_modes(rng: np.random.Generator) -> dict[str, float]:
@@ -152,40 +151,6 @@ def training_fields(
         yield img, lab, f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
 
 
-def save_regions(
-    path: str | Path, ts, classes, *, max_regions: int = MAX_SAVED_REGIONS, seed: int = 0
-) -> int:
-    """Write a seeded random subset of the training regions as a compressed ``.npz``.
-
-    Keys: ``X`` (float32), ``y`` (class names), ``groups`` (field index),
-    ``feature_names``, ``classes``, ``feature_set_version``; all plain arrays
-    (loadable with ``numpy.load(path)``, no pickle). Written to a temporary name
-    and renamed.
-
-    Returns
-    -------
-    int
-        Number of regions written.
-    """
-    from fracto.io.safe import atomic_write
-    from fracto.modes.features import FEATURE_SET_VERSION
-
-    n = len(ts.y)
-    rng = np.random.default_rng(seed)
-    keep = np.sort(rng.choice(n, size=min(n, max_regions), replace=False))
-    with atomic_write(path, "wb") as fh:
-        np.savez_compressed(
-            fh,
-            X=np.asarray(ts.X[keep], np.float32),
-            y=np.asarray(ts.y[keep]).astype(str),
-            groups=np.asarray(ts.groups[keep], np.int64),
-            feature_names=np.asarray(ts.names, dtype=str),
-            classes=np.asarray(list(classes), dtype=str),
-            feature_set_version=np.asarray(FEATURE_SET_VERSION),
-        )
-    return int(keep.size)
-
-
 def build_default_model(
     out_dir: str | Path,
     *,
@@ -250,7 +215,7 @@ def build_default_model(
         },
     )
     regions_path = out / "fracto-default.regions.npz"
-    n_saved = save_regions(regions_path, ts, MODES, seed=seed)
+    n_saved = save_training_regions(regions_path, ts, MODES, seed=seed)
     card["saved_regions"] = {
         "file": regions_path.name,
         "n_regions": n_saved,
@@ -459,7 +424,7 @@ def build_height_model(
         "fingerprint": model.height_view_fingerprint_,
     }
     regions_path = out / HEIGHT_MODEL_NAME.replace(".skops", ".regions.npz")
-    n_saved = save_regions(regions_path, ts, MODES, seed=seed)
+    n_saved = save_training_regions(regions_path, ts, MODES, seed=seed)
     card["saved_regions"] = {
         "file": regions_path.name,
         "n_regions": n_saved,

@@ -61,6 +61,9 @@ class ModeResult:
     correction : dict
         ``applied`` and, when applied, the method, the error rates used and the
         uncorrected unclassified share; else the reason it was not applied.
+    view : ndarray or None
+        For a height map alone, the rendered SEM view the regions were
+        classified on (what an overlay is drawn over); None for an SEM image.
     """
 
     classes: tuple[str, ...]
@@ -75,6 +78,7 @@ class ModeResult:
     settings: dict = field(default_factory=dict)
     fractions_uncorrected: FractionEstimate | None = None
     correction: dict = field(default_factory=dict)
+    view: np.ndarray | None = None
 
     def to_dict(self) -> dict:
         unc = self.fractions_uncorrected or self.fractions
@@ -299,7 +303,7 @@ def classify_height_map(
     res.settings.update(
         {"input": "height map", "view": view_settings(), "missing_fraction": missing}
     )
-    return res
+    return replace(res, view=view)
 
 
 def _finish(
