@@ -197,6 +197,18 @@ def main() -> None:
     from fracto.modes.model import default_model_path
 
     model = a.model or str(default_model_path())
+    import scipy.fft
+
+    ref = np.random.default_rng(0).random((2048, 2048))
+    ts = []
+    for _ in range(5):
+        t0 = time.perf_counter()
+        scipy.fft.irfft2(scipy.fft.rfft2(ref), s=ref.shape)
+        ts.append(time.perf_counter() - t0)
+    print(
+        f"machine reference: 2048^2 rfft2+irfft2 round trip {min(ts):.3f} s in one thread "
+        "(compare machines by it; the images/s target assumes a fast core)"
+    )
     print(
         f"load average before the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
         "(shared with other work)"

@@ -218,10 +218,47 @@ def test_sigmoid_and_two_class_models():
 
 def test_calibration_ensemble_members_average_to_the_model():
     # Code walking the ensemble (estimator_.calibrated_classifiers_) sees the calibrated
-    # boosters; their mean is the model's probability.
-    m = small_model()
-    X = small_training_set().X[:25]
+    # fold boosters; with ensemble=True their mean is the model's probability.
+    ts = small_training_set()
+    m = ModeClassifier(MODES, max_iter=10, random_state=0, ensemble=True).fit(
+        ts.X, ts.y, ts.groups
+    )
+    assert m.final_booster_ is None
+    X = ts.X[:25]
     members = m.member_proba(X)
     assert members.shape == (m.n_cv_folds_, 25, 4)
     np.testing.assert_allclose(members.mean(axis=0), m.predict_proba(X), atol=1e-12)
     assert list(m.estimator_.classes_) == list(m.classes_)
+    # the default (one refitted booster) keeps the same members for disagreement
+    d = small_model()
+    assert d.final_booster_ is not None
+    assert d.member_proba(X).shape == (d.n_cv_folds_, 25, 4)
+
+
+def test_refitted_booster_matches_sklearn_calibrated_classifier_cv():
+    # Reference: scikit-learn's CalibratedClassifierCV(ensemble=False) with the same
+    # grouped folds fits its isotonic one-vs-rest calibrators on cross_val_predict
+    # decision scores and applies them to one estimator fitted on all data; the
+    # boosting is deterministic (no subsampling, no early stopping), so fracto's
+    # default model must give the same probabilities.
+    from sklearn.calibration import CalibratedClassifierCV
+    from sklearn.ensemble import HistGradientBoostingClassifier
+    from sklearn.model_selection import GroupKFold
+
+    ts = small_training_set()
+    m = ModeClassifier(MODES, max_iter=5, random_state=0, n_importance_repeats=0).fit(
+        ts.X, ts.y, ts.groups
+    )
+    base = HistGradientBoostingClassifier(
+        max_iter=5,
+        max_leaf_nodes=15,
+        early_stopping=False,
+        class_weight="balanced",
+        random_state=0,
+    )
+    cv = list(GroupKFold(3).split(ts.X, ts.y, ts.groups))
+    ref = CalibratedClassifierCV(base, method="isotonic", cv=cv, ensemble=False)
+    ref.fit(np.asarray(ts.X, dtype=np.float32), ts.y)
+    X = np.asarray(ts.X[::7], dtype=np.float32)
+    order = [list(ref.classes_).index(c) for c in m.classes_]
+    np.testing.assert_allclose(m.predict_proba(X), ref.predict_proba(X)[:, order], atol=1e-9)

@@ -151,6 +151,72 @@ def training_fields(
         yield img, lab, f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
 
 
+def _field_rng(seed: int, i: int) -> np.random.Generator:
+    """Generator of field `i`'s region subset (the same whatever the number of jobs)."""
+    return np.random.default_rng([seed, i, 3])
+
+
+def _keep_regions(lab: np.ndarray, rng: np.random.Generator, max_regions: int | None):
+    keep = np.nonzero(lab > 0)[0]
+    if max_regions is not None and keep.size > max_regions:
+        keep = np.sort(rng.choice(keep, size=max_regions, replace=False))
+    return keep
+
+
+def image_field_part(i: int, seed: int, size: int, max_regions: int | None):
+    """(features, labels, name) of the labelled regions kept from image training field `i`."""
+    from fracto.modes.features import region_features
+    from fracto.modes.regions import tile_labels_from_mask
+
+    s = TRAIN_SEED_BASE + 1000 * seed + i
+    px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+    img, lab_img, meta = synthetic_field(s, size=size, pixel_size_um=px)
+    f = region_features(img, pixel_size_um=None, scale_um=None)
+    lab = tile_labels_from_mask(lab_img, f.tile_grid, f.block_px, len(MODES) + 1)
+    keep = _keep_regions(lab, _field_rng(seed, i), max_regions)
+    name = f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+    return f.X[keep], np.asarray(MODES)[lab[keep] - 1], name, f.names
+
+
+def _part_worker(args):
+    from fracto.campaign.runner import single_thread_worker
+
+    single_thread_worker()
+    fn, i, seed, size, max_regions = args
+    return fn(i, seed, size, max_regions)
+
+
+def field_parts(
+    fn, n_fields: int, *, seed: int, size: int, max_regions: int | None, jobs: int, progress: bool
+):
+    """Every field's part from `fn`, in field order, on `jobs` processes (1: this one)."""
+    t0 = time.perf_counter()
+    args = [(fn, i, seed, size, max_regions) for i in range(n_fields)]
+    if jobs > 1:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        ex = ProcessPoolExecutor(jobs, mp_context=multiprocessing.get_context("spawn"))
+        results = ex.map(_part_worker, args)
+    else:
+        ex = None
+        results = (fn(*a[1:]) for a in args)
+    parts, names = [], []
+    try:
+        for i, (X, y, name, f_names) in enumerate(results):
+            names = list(f_names)
+            if len(y):
+                parts.append((X, y, name))
+            if progress and (i + 1) % 8 == 0:
+                print(
+                    f"  {i + 1}/{n_fields} fields ({time.perf_counter() - t0:.0f} s)", flush=True
+                )
+    finally:
+        if ex is not None:
+            ex.shutdown(cancel_futures=True)
+    return parts, names
+
+
 def build_default_model(
     out_dir: str | Path,
     *,
@@ -161,28 +227,38 @@ def build_default_model(
     n_threads: int | None = 1,
     max_regions: int | None = 500,
     progress: bool = True,
+    jobs: int = 1,
 ) -> dict:
     """Generate the synthetic training set, train, score, and write model + card.
+
+    `jobs` processes make the fields and their features (the boosting runs on
+    `n_threads`, stored in the model as its prediction thread limit). Each
+    field's region subset has its own seeded generator, so `jobs` changes which
+    process computes a field, not which regions are kept; the features may then
+    differ in the last float32 bit (summation order depends on memory
+    alignment), which can move a rare region across a histogram-bin edge.
 
     Returns
     -------
     dict
         The model card.
     """
-    from fracto.modes.training import format_scores, set_from_arrays, train_and_save
+    from fracto.modes.training import TrainingSet, format_scores, train_and_save
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()
-    items = []
-    metas = []
-    for i, (img, lab, name) in enumerate(training_fields(n_fields, seed=seed, size=size)):
-        items.append((img, lab, name))
-        metas.append(name)
-        if progress and (i + 1) % 8 == 0:
-            print(f"  {i + 1}/{n_fields} fields ({time.perf_counter() - t0:.0f} s)", flush=True)
-    ts = set_from_arrays(items, MODES, max_regions_per_image=max_regions, seed=seed)
-    del items
+    parts, names = field_parts(
+        image_field_part,
+        n_fields,
+        seed=seed,
+        size=size,
+        max_regions=max_regions,
+        jobs=jobs,
+        progress=progress,
+    )
+    ts = TrainingSet.concatenate(parts, names)
+    ts.summary["classes"] = list(MODES)
     ts.summary.update(
         {
             "source": "fracto.synth only (no real images)",
@@ -212,6 +288,7 @@ def build_default_model(
         extra_card={
             "command": "python -m fracto.modes.default_model --out models/",
             "build_seconds": None,
+            "build_jobs": jobs,
         },
     )
     regions_path = out / "fracto-default.regions.npz"
@@ -302,6 +379,21 @@ def synthetic_height_field(
     return z, lab, meta
 
 
+def height_field_part(i: int, seed: int, size: int, max_regions: int | None):
+    """(features, labels, name, feature names) of height training map `i`'s kept regions."""
+    from fracto.modes.heightview import height_region_features
+    from fracto.modes.regions import tile_labels_from_mask
+
+    s = HEIGHT_SEED_BASE + 1000 * seed + i
+    px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+    z, lab_img, meta = synthetic_height_field(s, size=size, pixel_size_um=px)
+    _, f = height_region_features(z, px)
+    lab = tile_labels_from_mask(lab_img, f.tile_grid, f.block_px, len(MODES) + 1)
+    keep = _keep_regions(lab, _field_rng(seed, i), max_regions)
+    name = f"synth-height-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+    return f.X[keep], np.asarray(MODES)[lab[keep] - 1], name, f.names
+
+
 def height_training_set(
     n_fields: int,
     *,
@@ -309,37 +401,26 @@ def height_training_set(
     size: int = 512,
     max_regions: int | None = 500,
     progress: bool = False,
+    jobs: int = 1,
 ):
     """Region features (view + height) and labels of the height model's training maps.
 
     Field ``i`` has seed ``HEIGHT_SEED_BASE + 1000 seed + i``; its pixel size is
     drawn log-uniform from :data:`PIXEL_UM_RANGE` by a generator seeded with
-    ``(field seed, 1)``.
+    ``(field seed, 1)``. `jobs` processes share the maps.
     """
-    from fracto.modes.heightview import height_region_features
-    from fracto.modes.regions import tile_labels_from_mask
     from fracto.modes.training import TrainingSet
 
-    rng = np.random.default_rng(seed)
-    n_labels = len(MODES) + 1
-    parts, names = [], None
-    t0 = time.perf_counter()
-    for i in range(n_fields):
-        s = HEIGHT_SEED_BASE + 1000 * seed + i
-        px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
-        z, lab, meta = synthetic_height_field(s, size=size, pixel_size_um=px)
-        _, f = height_region_features(z, px)
-        names = f.names
-        tl = tile_labels_from_mask(lab, f.tile_grid, f.block_px, n_labels)
-        keep = np.nonzero(tl > 0)[0]
-        if max_regions is not None and keep.size > max_regions:
-            keep = np.sort(rng.choice(keep, size=max_regions, replace=False))
-        if keep.size:
-            name = f"synth-height-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
-            parts.append((f.X[keep], np.asarray(MODES)[tl[keep] - 1], name))
-        if progress and (i + 1) % 8 == 0:
-            print(f"  {i + 1}/{n_fields} maps ({time.perf_counter() - t0:.0f} s)", flush=True)
-    ts = TrainingSet.concatenate(parts, list(names or []))
+    parts, names = field_parts(
+        height_field_part,
+        n_fields,
+        seed=seed,
+        size=size,
+        max_regions=max_regions,
+        jobs=jobs,
+        progress=progress,
+    )
+    ts = TrainingSet.concatenate(parts, names)
     ts.summary["classes"] = list(MODES)
     return ts
 
@@ -363,8 +444,11 @@ def build_height_model(
     n_threads: int | None = 1,
     max_regions: int | None = 500,
     progress: bool = True,
+    jobs: int = 1,
 ) -> dict:
     """Train the height-input model on synthetic height maps and write model, card, regions.
+
+    `jobs` as in :func:`build_default_model`.
 
     Returns
     -------
@@ -380,7 +464,7 @@ def build_height_model(
     out.mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()
     ts = height_training_set(
-        n_fields, seed=seed, size=size, max_regions=max_regions, progress=progress
+        n_fields, seed=seed, size=size, max_regions=max_regions, progress=progress, jobs=jobs
     )
     ts.summary.update(
         {
@@ -412,6 +496,7 @@ def build_height_model(
         extra_card={
             "command": "python -m fracto.modes.default_model --height --out models/",
             "build_seconds": None,
+            "build_jobs": jobs,
         },
     )
     # the fitted model learns that it takes height maps alone, and which view it saw
@@ -453,12 +538,21 @@ def _main(argv: list[str] | None = None) -> int:
         action="store_true",
         help="build the height-map model (fracto-height.skops) instead of the image model",
     )
+    p.add_argument(
+        "--jobs",
+        type=int,
+        default=2,
+        help="processes making the synthetic fields and their features (default 2)",
+    )
     a = p.parse_args(argv)
+    if a.jobs < 1:
+        print("fracto: --jobs must be at least 1.", file=sys.stderr)
+        return 2
     if not (a.fields >= 4 and a.size >= 128 and math.isfinite(a.size)):
         print("fracto: need at least 4 fields of at least 128 px.", file=sys.stderr)
         return 2
     build = build_height_model if a.height else build_default_model
-    build(a.out, n_fields=a.fields, size=a.size, seed=a.seed, cv_folds=a.cv)
+    build(a.out, n_fields=a.fields, size=a.size, seed=a.seed, cv_folds=a.cv, jobs=a.jobs)
     return 0
 
 

@@ -118,11 +118,21 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         (0: none).
     max_importance_regions : int
         Held-out regions per fold used for the permutation importance.
+    ensemble : bool
+        True: predictions average the calibrated fold boosters (k boosters per
+        prediction). False (default): one more booster is fitted on all regions
+        and calibrated with the fold boosters' out-of-fold scores, as
+        ``CalibratedClassifierCV(ensemble=False)`` does; a prediction then costs
+        one booster. The fold boosters are kept either way (held-out scores,
+        member disagreement in :mod:`fracto.modes.suggest`).
 
     Attributes
     ----------
     boosters_ : list of HistGradientBoostingClassifier
         One booster per grouped calibration fold, each fitted without its fold.
+    final_booster_ : HistGradientBoostingClassifier or None
+        The booster fitted on all regions (``ensemble=False``), used by
+        :meth:`predict_proba`; None when the fold boosters are averaged.
     calibrators_ : list or None
         One-vs-rest calibrators fitted on every out-of-fold decision score.
     confusion_ : ndarray (k, k) or None
@@ -145,9 +155,12 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
     -----
     Calibration and cross-validation share the folds: booster ``i`` is fitted
     without fold ``i``; its decision scores on fold ``i`` are out of fold. The
-    model's calibrators are fitted on all out-of-fold scores and the model
-    averages the calibrated boosters (as ``CalibratedClassifierCV`` with
-    ``ensemble=True``, but with a pooled calibrator). For the held-out scores,
+    model's calibrators are fitted on all out-of-fold scores; the model then
+    predicts with one booster refitted on all regions through those
+    calibrators (``ensemble=False``, as ``CalibratedClassifierCV`` with
+    ``ensemble=False``), or averages the calibrated fold boosters
+    (``ensemble=True``, as ``CalibratedClassifierCV`` with ``ensemble=True`` but
+    with a pooled calibrator). For the held-out scores,
     fold ``i`` is predicted by booster ``i`` with calibrators fitted on the
     other folds' scores only, so neither part has seen the fold: the
     confusion matrix costs no extra booster fit.
@@ -171,6 +184,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         class_weight: str | None = "balanced",
         n_importance_repeats: int = 2,
         max_importance_regions: int = 2000,
+        ensemble: bool = False,
     ):
         self.classes = classes
         self.threshold = threshold
@@ -187,6 +201,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         self.class_weight = class_weight
         self.n_importance_repeats = n_importance_repeats
         self.max_importance_regions = max_importance_regions
+        self.ensemble = ensemble
 
     def _base(self, weighted: bool = False):
         cls = UnweightedBinsBooster if weighted else HistGradientBoostingClassifier
@@ -293,6 +308,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         self.confusion_source_ = None
         self.feature_importance_ = None
         self.n_cv_folds_ = 0
+        self.final_booster_ = None
         k = min(self.n_calibration_folds, n_groups)
         folds = []
         if method != "none" and k >= 2:
@@ -318,6 +334,8 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
             oof[te] = True
             fold_of[te] = i
         self.boosters_ = boosters
+        if not self.ensemble:
+            self.final_booster_ = self._base(sw is not None).fit(X, y, sample_weight=sw)
         # the final calibrator sees every out-of-fold score (boosters are exchangeable)
         self.calibrators_ = _fit_calibrators(
             scores[oof], y[oof], self.classes_, method, None if sw is None else sw[oof]
@@ -492,6 +510,9 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
                 b = self.boosters_[0]
                 order = [list(b.classes_).index(c) for c in self.classes_]
                 return b.predict_proba(X)[:, order]
+            final = getattr(self, "final_booster_", None)
+            if final is not None:
+                return _calibrated(final, self.calibrators_, X, self.classes_)
             p = np.zeros((len(X), len(self.classes_)))
             for b in self.boosters_:
                 p += _calibrated(b, self.calibrators_, X, self.classes_)
@@ -649,8 +670,8 @@ def save_model(model: ModeClassifier, path: str | os.PathLike) -> str:
 def load_model(path: str | os.PathLike, *, trust: bool = False) -> ModeClassifier:
     """Read a fracto model written by :func:`save_model`.
 
-    The types the file holds are checked first (``skops.io.get_untrusted_types``);
-    any type outside :data:`KNOWN_TYPES` is refused unless `trust` is True.
+    skops checks every type the file holds while loading; any type outside
+    :data:`KNOWN_TYPES` is refused unless `trust` is True.
 
     Raises
     ------
@@ -666,22 +687,29 @@ def load_model(path: str | os.PathLike, *, trust: bool = False) -> ModeClassifie
         raise FractoInputError(f"The model file '{p}' does not exist.")
     if not zipfile.is_zipfile(p):
         raise FractoInputError(f"'{p}' is not a fracto model file (not a skops archive).")
+    from skops.io.exceptions import UntrustedTypesFoundException
+
+    # One pass over the file: skops refuses any type outside the list while loading;
+    # only then (or with `trust`) is the file walked a second time to name the types.
     try:
-        untrusted = sio.get_untrusted_types(file=p)
+        if trust:
+            obj = sio.load(p, trusted=sio.get_untrusted_types(file=p))
+        else:
+            obj = sio.load(p, trusted=sorted(KNOWN_TYPES))
+    except UntrustedTypesFoundException as exc:
+        try:
+            unexpected = sorted(set(sio.get_untrusted_types(file=p)) - KNOWN_TYPES)
+        except Exception:  # the first error already says enough
+            unexpected = []
+        names = ", ".join(unexpected) or str(exc)
+        raise FractoInputError(
+            f"The model file '{p}' holds types fracto does not expect ({names}); "
+            "load it only if you trust its source, with --trust."
+        ) from exc
     except Exception as exc:
         raise FractoInputError(
             f"'{p}' is not a fracto model file ({type(exc).__name__})."
         ) from exc
-    unexpected = sorted(set(untrusted) - KNOWN_TYPES)
-    if unexpected and not trust:
-        raise FractoInputError(
-            f"The model file '{p}' holds types fracto does not expect ({', '.join(unexpected)}); "
-            "load it only if you trust its source, with --trust."
-        )
-    try:
-        obj = sio.load(p, trusted=list(untrusted))
-    except Exception as exc:
-        raise FractoInputError(f"'{p}' could not be read as a fracto model ({exc}).") from exc
     if not isinstance(obj, ModeClassifier) or getattr(obj, "kind_", None) != MODEL_KIND:
         raise FractoInputError(f"'{p}' is a skops file but not a fracto mode model.")
     version = getattr(obj, "feature_set_version_", None)
