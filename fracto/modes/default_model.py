@@ -145,10 +145,15 @@ def training_fields(
     ``(field seed, 1)``, apart from the draws inside :func:`synthetic_field`.
     """
     for i in range(n_fields):
-        s = TRAIN_SEED_BASE + 1000 * seed + i
-        px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+        s, px = field_seed_and_pixel(TRAIN_SEED_BASE, seed, i)
         img, lab, meta = synthetic_field(s, size=size, pixel_size_um=px)
         yield img, lab, f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+
+
+def field_seed_and_pixel(base: int, seed: int, i: int) -> tuple[int, float]:
+    """Seed ``base + 1000 seed + i`` of field `i` and its log-uniform pixel size (µm)."""
+    s = base + 1000 * seed + i
+    return s, float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
 
 
 def _field_rng(seed: int, i: int) -> np.random.Generator:
@@ -168,8 +173,7 @@ def image_field_part(i: int, seed: int, size: int, max_regions: int | None):
     from fracto.modes.features import region_features
     from fracto.modes.regions import tile_labels_from_mask
 
-    s = TRAIN_SEED_BASE + 1000 * seed + i
-    px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+    s, px = field_seed_and_pixel(TRAIN_SEED_BASE, seed, i)
     img, lab_img, meta = synthetic_field(s, size=size, pixel_size_um=px)
     f = region_features(img, pixel_size_um=None, scale_um=None)
     lab = tile_labels_from_mask(lab_img, f.tile_grid, f.block_px, len(MODES) + 1)
@@ -189,7 +193,9 @@ def _part_worker(args):
 def field_parts(
     fn, n_fields: int, *, seed: int, size: int, max_regions: int | None, jobs: int, progress: bool
 ):
-    """Every field's part from `fn`, in field order, on `jobs` processes (1: this one)."""
+    """Training set of every field's part from `fn`, in field order, on `jobs` processes."""
+    from fracto.modes.training import TrainingSet
+
     t0 = time.perf_counter()
     args = [(fn, i, seed, size, max_regions) for i in range(n_fields)]
     if jobs > 1:
@@ -214,7 +220,9 @@ def field_parts(
     finally:
         if ex is not None:
             ex.shutdown(cancel_futures=True)
-    return parts, names
+    ts = TrainingSet.concatenate(parts, names)
+    ts.summary["classes"] = list(MODES)
+    return ts
 
 
 def build_default_model(
@@ -243,12 +251,12 @@ def build_default_model(
     dict
         The model card.
     """
-    from fracto.modes.training import TrainingSet, format_scores, train_and_save
+    from fracto.modes.training import format_scores, train_and_save
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()
-    parts, names = field_parts(
+    ts = field_parts(
         image_field_part,
         n_fields,
         seed=seed,
@@ -257,8 +265,6 @@ def build_default_model(
         jobs=jobs,
         progress=progress,
     )
-    ts = TrainingSet.concatenate(parts, names)
-    ts.summary["classes"] = list(MODES)
     ts.summary.update(
         {
             "source": "fracto.synth only (no real images)",
@@ -384,8 +390,7 @@ def height_field_part(i: int, seed: int, size: int, max_regions: int | None):
     from fracto.modes.heightview import height_region_features
     from fracto.modes.regions import tile_labels_from_mask
 
-    s = HEIGHT_SEED_BASE + 1000 * seed + i
-    px = float(np.exp(np.random.default_rng([s, 1]).uniform(*np.log(PIXEL_UM_RANGE))))
+    s, px = field_seed_and_pixel(HEIGHT_SEED_BASE, seed, i)
     z, lab_img, meta = synthetic_height_field(s, size=size, pixel_size_um=px)
     _, f = height_region_features(z, px)
     lab = tile_labels_from_mask(lab_img, f.tile_grid, f.block_px, len(MODES) + 1)
@@ -409,9 +414,7 @@ def height_training_set(
     drawn log-uniform from :data:`PIXEL_UM_RANGE` by a generator seeded with
     ``(field seed, 1)``. `jobs` processes share the maps.
     """
-    from fracto.modes.training import TrainingSet
-
-    parts, names = field_parts(
+    ts = field_parts(
         height_field_part,
         n_fields,
         seed=seed,
@@ -420,8 +423,6 @@ def height_training_set(
         jobs=jobs,
         progress=progress,
     )
-    ts = TrainingSet.concatenate(parts, names)
-    ts.summary["classes"] = list(MODES)
     return ts
 
 
