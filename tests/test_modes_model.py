@@ -12,6 +12,7 @@ from fracto.classes import MODES, UNCLASSIFIED
 from fracto.errors import FractoInputError
 from fracto.modes.model import (
     ModeClassifier,
+    UnweightedBinsBooster,
     card_path_for,
     load_model,
     save_model,
@@ -167,7 +168,6 @@ def test_tile_confusion_is_out_of_fold():
     # (uncalibrated) booster. The stored labels come from calibrators fitted without
     # the fold too, which costs a few points on 16 tiny images (measured 0.79 vs 0.84),
     # so the held-out accuracy must be near sklearn's and below the in-sample one.
-    from sklearn.ensemble import HistGradientBoostingClassifier
     from sklearn.metrics import confusion_matrix
     from sklearn.model_selection import GroupKFold, cross_val_predict
 
@@ -175,7 +175,8 @@ def test_tile_confusion_is_out_of_fold():
     ts = small_training_set()
     cm = m.confusion_
     assert cm.sum() == len(ts.y) and "training tiles" in m.confusion_source_
-    base = HistGradientBoostingClassifier(
+    # same booster (scikit-learn's, with bin edges from the unweighted data)
+    base = UnweightedBinsBooster(
         max_iter=40,
         max_leaf_nodes=15,
         early_stopping=False,
@@ -242,14 +243,14 @@ def test_refitted_booster_matches_sklearn_calibrated_classifier_cv():
     # boosting is deterministic (no subsampling, no early stopping), so fracto's
     # default model must give the same probabilities.
     from sklearn.calibration import CalibratedClassifierCV
-    from sklearn.ensemble import HistGradientBoostingClassifier
     from sklearn.model_selection import GroupKFold
 
     ts = small_training_set()
     m = ModeClassifier(MODES, max_iter=5, random_state=0, n_importance_repeats=0).fit(
         ts.X, ts.y, ts.groups
     )
-    base = HistGradientBoostingClassifier(
+    # same booster (scikit-learn's, with bin edges from the unweighted data)
+    base = UnweightedBinsBooster(
         max_iter=5,
         max_leaf_nodes=15,
         early_stopping=False,
