@@ -325,9 +325,7 @@ class ModeClassifier(ClassifierMixin, BaseEstimator):
         oof = np.zeros(len(y), dtype=bool)
         fold_of = np.full(len(y), -1)
         for i, (tr, te) in enumerate(folds):
-            b = self._base().fit(
-                X[tr], y[tr], sample_weight=None if sw is None else sw[tr]
-            )
+            b = self._base().fit(X[tr], y[tr], sample_weight=None if sw is None else sw[tr])
             boosters.append(b)
             scores[te] = _raw_scores(b, X[te], self.classes_)
             oof[te] = True
