@@ -23,3 +23,25 @@ def test_field_parts_do_not_depend_on_the_number_of_processes():
 def test_bad_jobs_is_exit_status_2(capsys):
     assert _main(["--jobs", "0", "--out", "unused"]) == 2
     assert "--jobs must be at least 1" in capsys.readouterr().err
+
+
+def _part_or_refused(i, seed, size, max_regions):
+    """Field 1 is refused (as a too-coarse field is); the others give two regions."""
+    import numpy as np
+
+    if i == 1:
+        return None, np.empty(0, dtype=object), f"f{i}", None
+    X = np.full((2, 3), float(i), np.float32)
+    return X, np.array(["ductile", "fatigue"], dtype=object), f"f{i}", ["a", "b", "c"]
+
+
+def test_a_refused_field_is_skipped_and_named():
+    import numpy as np
+
+    ts = field_parts(
+        _part_or_refused, 3, seed=0, size=64, max_regions=None, jobs=1, progress=False
+    )
+    assert ts.summary["fields_without_regions"] == ["f1"]
+    assert ts.X.shape == (4, 3) and ts.images == ["f0", "f2"]
+    np.testing.assert_array_equal(ts.X[:, 0], [0, 0, 2, 2])
+    assert list(ts.names) == ["a", "b", "c"]

@@ -170,15 +170,21 @@ def _keep_regions(lab: np.ndarray, rng: np.random.Generator, max_regions: int | 
 
 def image_field_part(i: int, seed: int, size: int, max_regions: int | None):
     """(features, labels, name) of the labelled regions kept from image training field `i`."""
+    from fracto.errors import FractoInputError
     from fracto.modes.features import region_features
     from fracto.modes.regions import tile_labels_from_mask
 
     s, px = field_seed_and_pixel(TRAIN_SEED_BASE, seed, i)
     img, lab_img, meta = synthetic_field(s, size=size, pixel_size_um=px)
-    f = region_features(img, pixel_size_um=None, scale_um=None)
+    name = f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
+    try:
+        f = region_features(img, pixel_size_um=None, scale_um=None)
+    except FractoInputError:
+        # texture scale too coarse for the field to hold 3 x 3 regions: a user would
+        # be refused the same image, so the model does not learn from it either
+        return None, np.empty(0, dtype=object), name, None
     lab = tile_labels_from_mask(lab_img, f.tile_grid, f.block_px, len(MODES) + 1)
     keep = _keep_regions(lab, _field_rng(seed, i), max_regions)
-    name = f"synth-seed{s}-grain{meta['grain_px']:.1f}px-px{px:.3f}um"
     return f.X[keep], np.asarray(MODES)[lab[keep] - 1], name, f.names
 
 
@@ -207,12 +213,15 @@ def field_parts(
     else:
         ex = None
         results = (fn(*a[1:]) for a in args)
-    parts, names = [], []
+    parts, names, skipped = [], [], []
     try:
         for i, (X, y, name, f_names) in enumerate(results):
-            names = list(f_names)
+            if f_names is not None:
+                names = list(f_names)
             if len(y):
                 parts.append((X, y, name))
+            else:
+                skipped.append(name)
             if progress and (i + 1) % 8 == 0:
                 print(
                     f"  {i + 1}/{n_fields} fields ({time.perf_counter() - t0:.0f} s)", flush=True
@@ -222,6 +231,7 @@ def field_parts(
             ex.shutdown(cancel_futures=True)
     ts = TrainingSet.concatenate(parts, names)
     ts.summary["classes"] = list(MODES)
+    ts.summary["fields_without_regions"] = skipped
     return ts
 
 
