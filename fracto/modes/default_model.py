@@ -238,7 +238,7 @@ def field_parts(
 def build_default_model(
     out_dir: str | Path,
     *,
-    n_fields: int = 96,
+    n_fields: int = 288,
     size: int = 512,
     seed: int = 0,
     cv_folds: int = 4,
@@ -540,7 +540,12 @@ def build_height_model(
 def _main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--out", default="models/", help="output folder (default models/)")
-    p.add_argument("--fields", type=int, default=96, help="synthetic training fields")
+    p.add_argument(
+        "--fields",
+        type=int,
+        default=None,
+        help="synthetic training fields (default 288 for the image model, 96 for --height)",
+    )
     p.add_argument("--size", type=int, default=512, help="field side in pixels")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--cv", type=int, default=4, help="grouped cross-validation folds")
@@ -559,6 +564,8 @@ def _main(argv: list[str] | None = None) -> int:
     if a.jobs < 1:
         print("fracto: --jobs must be at least 1.", file=sys.stderr)
         return 2
+    if a.fields is None:
+        a.fields = 96 if a.height else 288
     if not (a.fields >= 4 and a.size >= 128 and math.isfinite(a.size)):
         print("fracto: need at least 4 fields of at least 128 px.", file=sys.stderr)
         return 2
