@@ -22,7 +22,43 @@ def test_field_parts_do_not_depend_on_the_number_of_processes():
 
 def test_bad_jobs_is_exit_status_2(capsys):
     assert _main(["--jobs", "0", "--out", "unused"]) == 2
-    assert "--jobs must be at least 1" in capsys.readouterr().err
+    assert "--jobs and --regions-per-field must be at least 1" in capsys.readouterr().err
+    assert _main(["--regions-per-field", "0", "--out", "unused"]) == 2
+
+
+def test_fit_threads_do_not_change_the_model_and_predictions_keep_one_thread(tmp_path):
+    # HistGradientBoosting sums each feature's histogram on one thread, so the
+    # number of OpenMP threads must not change the trees (property of the
+    # scikit-learn implementation; checked here, common practice, no source).
+    from fracto.classes import MODES
+    from fracto.modes.model import load_model
+    from fracto.modes.training import train_and_save
+
+    ts = field_parts(image_field_part, 4, seed=0, size=192, max_regions=60, jobs=1, progress=False)
+    probas = []
+    for threads in (None, 2):
+        path = tmp_path / f"m{threads}.skops"
+        train_and_save(
+            ts,
+            path,
+            classes=MODES,
+            model_params={"n_threads": 1, "max_iter": 20},
+            fit_threads=threads,
+            n_splits=2,
+            importance=False,
+        )
+        model = load_model(path)
+        assert model.n_threads == 1
+        probas.append(model.predict_proba(ts.X))
+    np.testing.assert_array_equal(probas[0], probas[1])
+
+
+def test_the_card_command_names_every_setting():
+    from fracto.modes.default_model import build_command
+
+    cmd = build_command(288, 512, 0, 4, 300, height=False)
+    assert cmd.endswith("--fields 288 --size 512 --seed 0 --cv 4 --regions-per-field 300")
+    assert "--height" in build_command(96, 512, 0, 4, 500, height=True)
 
 
 def _part_or_refused(i, seed, size, max_regions):

@@ -235,6 +235,18 @@ def field_parts(
     return ts
 
 
+def build_command(
+    n_fields: int, size: int, seed: int, cv_folds: int, max_regions: int | None, *, height: bool
+) -> str:
+    """The command line that rebuilds a model with these settings (for its card)."""
+    words = ["OMP_NUM_THREADS=1 python -m fracto.modes.default_model"]
+    words += ["--height"] if height else []
+    words += ["--out models/", f"--fields {n_fields}", f"--size {size}", f"--seed {seed}"]
+    words += [f"--cv {cv_folds}"]
+    words += [f"--regions-per-field {max_regions}"] if max_regions is not None else []
+    return " ".join(words)
+
+
 def build_default_model(
     out_dir: str | Path,
     *,
@@ -249,8 +261,9 @@ def build_default_model(
 ) -> dict:
     """Generate the synthetic training set, train, score, and write model + card.
 
-    `jobs` processes make the fields and their features (the boosting runs on
-    `n_threads`, stored in the model as its prediction thread limit). Each
+    `jobs` processes make the fields and their features, and `jobs` OpenMP
+    threads fit the boosting (the thread count does not change the fitted
+    trees); the saved model predicts on `n_threads`. Each
     field's region subset has its own seeded generator, so `jobs` changes which
     process computes a field, not which regions are kept; the features may then
     differ in the last float32 bit (summation order depends on memory
@@ -279,6 +292,7 @@ def build_default_model(
         {
             "source": "fracto.synth only (no real images)",
             "n_fields": n_fields,
+            "max_regions_per_field": max_regions,
             "field_size_px": size,
             "grain_px_range": list(GRAIN_PX_RANGE),
             "pixel_size_um_range": list(PIXEL_UM_RANGE),
@@ -299,10 +313,11 @@ def build_default_model(
         path,
         classes=MODES,
         model_params={"n_threads": n_threads},
+        fit_threads=jobs,
         n_splits=cv_folds,
         seed=seed,
         extra_card={
-            "command": "python -m fracto.modes.default_model --out models/",
+            "command": build_command(n_fields, size, seed, cv_folds, max_regions, height=False),
             "build_seconds": None,
             "build_jobs": jobs,
         },
@@ -482,6 +497,7 @@ def build_height_model(
             "source": "fracto.synth height maps only (no real data)",
             "input": "height map alone: rendered view (fracto.modes.heightview) + height features",
             "n_fields": n_fields,
+            "max_regions_per_field": max_regions,
             "field_size_px": size,
             "grain_px_range": list(GRAIN_PX_RANGE),
             "pixel_size_um_range": list(PIXEL_UM_RANGE),
@@ -502,10 +518,11 @@ def build_height_model(
         path,
         classes=MODES,
         model_params={"n_threads": n_threads, "uses_height": True},
+        fit_threads=jobs,
         n_splits=cv_folds,
         seed=seed,
         extra_card={
-            "command": "python -m fracto.modes.default_model --height --out models/",
+            "command": build_command(n_fields, size, seed, cv_folds, max_regions, height=True),
             "build_seconds": None,
             "build_jobs": jobs,
         },
@@ -560,9 +577,15 @@ def _main(argv: list[str] | None = None) -> int:
         default=2,
         help="processes making the synthetic fields and their features (default 2)",
     )
+    p.add_argument(
+        "--regions-per-field",
+        type=int,
+        default=500,
+        help="most training regions kept per field (seeded subset; default 500)",
+    )
     a = p.parse_args(argv)
-    if a.jobs < 1:
-        print("fracto: --jobs must be at least 1.", file=sys.stderr)
+    if a.jobs < 1 or a.regions_per_field < 1:
+        print("fracto: --jobs and --regions-per-field must be at least 1.", file=sys.stderr)
         return 2
     if a.fields is None:
         a.fields = 96 if a.height else 288
@@ -570,7 +593,15 @@ def _main(argv: list[str] | None = None) -> int:
         print("fracto: need at least 4 fields of at least 128 px.", file=sys.stderr)
         return 2
     build = build_height_model if a.height else build_default_model
-    build(a.out, n_fields=a.fields, size=a.size, seed=a.seed, cv_folds=a.cv, jobs=a.jobs)
+    build(
+        a.out,
+        n_fields=a.fields,
+        size=a.size,
+        seed=a.seed,
+        cv_folds=a.cv,
+        jobs=a.jobs,
+        max_regions=a.regions_per_field,
+    )
     return 0
 
 

@@ -490,11 +490,17 @@ def train_and_save(
     sample_weight: np.ndarray | None = None,
     new: np.ndarray | None = None,
     regions_out: str | os.PathLike | None = None,
+    fit_threads: int | None = None,
 ) -> tuple[dict[str, Any], dict[str, Any]]:
     """Score by grouped CV, fit on everything, save with skops and write the card.
 
     Parameters
     ----------
+    fit_threads : int, optional
+        OpenMP threads of every fit here (the boosting's histograms are summed
+        feature by feature, so the thread count does not change the model); the
+        saved model keeps the ``n_threads`` of `model_params` for its predictions.
+        None: that ``n_threads`` for fitting too.
     sample_weight : array (n_regions,), optional
         Region weights for every fit.
     new : bool array (n_regions,), optional
@@ -513,7 +519,8 @@ def train_and_save(
 
     from fracto.modes.model import ModeClassifier, save_model, write_model_card
 
-    params = {"random_state": seed, **(model_params or {})}
+    saved = {"random_state": seed, **(model_params or {})}
+    params = saved if fit_threads is None else {**saved, "n_threads": fit_threads}
 
     def make():
         return ModeClassifier(tuple(classes), **params)
@@ -543,6 +550,7 @@ def train_and_save(
         sample_weight=sample_weight,
         score_groups=score_groups,
     )
+    model.set_params(n_threads=saved.get("n_threads", model.n_threads))
     save_model(model, out)
     extra_card = dict(extra_card or {})
     if regions_out is not None:
