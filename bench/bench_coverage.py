@@ -54,12 +54,12 @@ SCHEMES = {
 }
 
 
-def bench_field(i: int):
+def bench_field(i: int, pixel_um: tuple[float, float] = PIXEL_UM):
     """Image, label image and settings of bench field `i` (seed SEED_BASE + i)."""
     seed = SEED_BASE + i
     rng = np.random.default_rng([seed, 1])
     size = int(SIZES[i % len(SIZES)])
-    px = float(np.exp(rng.uniform(*np.log(PIXEL_UM))))
+    px = float(np.exp(rng.uniform(*np.log(pixel_um))))
     grain = float(np.exp(rng.uniform(*np.log(GRAIN_PX))))
     modes = random_modes(rng)
     img, lab, _ = synthetic_field(seed, size=size, grain_px=grain, modes=modes, pixel_size_um=px)
@@ -78,7 +78,13 @@ def train_in_bench(n_fields: int, seed: int = 0):
     )
 
 
-def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
+def evaluate(
+    model,
+    n_fields: int,
+    n_boot: int,
+    progress: bool = True,
+    pixel_um: tuple[float, float] = PIXEL_UM,
+) -> dict:
     rates = ErrorRates.from_model(model)
     if rates is None:
         raise SystemExit("The model holds no held-out confusion; retrain it.")
@@ -90,6 +96,7 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
     lo = {c: np.zeros((n_fields, k)) for c in kinds}
     hi = {c: np.zeros((n_fields, k)) for c in kinds}
     truth = np.zeros((n_fields, k))
+    fields = []
     t0 = time.perf_counter()
     from fracto.errors import FractoInputError
 
@@ -98,13 +105,14 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
     for i in range(n_fields):
         while True:  # fields too coarse to classify (too few regions) are skipped
             j += 1
-            img, lab, _ = bench_field(j)
+            img, lab, meta = bench_field(j, pixel_um)
             try:
                 f = region_features(img, scale_um=model.scale_um)
                 break
             except FractoInputError:
                 skipped.append(SEED_BASE + j)
         truth[i] = [(lab == MODES.index(c) + 1).mean() for c in classes]
+        fields.append(meta)
         pb = tiles_to_blocks(model.predict_proba(f.X), f.tile_grid)
         w = f.block_weights()
         counted = block_bootstrap_fractions(
@@ -149,7 +157,16 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
         "n_fields": n_fields,
         "n_boot": n_boot,
         "skipped_seeds": skipped,
+        "pixel_um_range": list(pixel_um),
         "results": out,
+        "fields": [
+            {
+                **f,
+                "truth": truth[i].tolist(),
+                **{c: est[c][i].tolist() for c in kinds},
+            }
+            for i, f in enumerate(fields)
+        ],
         "seconds": None,
     }
 
@@ -157,7 +174,8 @@ def evaluate(model, n_fields: int, n_boot: int, progress: bool = True) -> dict:
 def format_results(d: dict) -> str:
     lines = [
         f"{d['n_fields']} unseen fields ({len(d['skipped_seeds'])} too coarse to classify "
-        f"skipped), {d['n_boot']} replicates, target coverage 0.90-0.98"
+        f"skipped), pixel sizes {d['pixel_um_range'][0]}-{d['pixel_um_range'][1]} µm, "
+        f"{d['n_boot']} replicates, target coverage 0.90-0.98"
     ]
     lines.append(f"{'interval':<18}{'mode':<15}{'coverage':>9}{'width':>8}{'bias':>8}{'rmse':>7}")
     for kind, per in d["results"].items():
@@ -181,7 +199,15 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--save-model", help="save the in-bench model here")
     p.add_argument("--fields", type=int, default=200)
     p.add_argument("--n-boot", type=int, default=500)
-    p.add_argument("--json", help="write the figures here as JSON")
+    p.add_argument("--json", help="write the figures (and every field's) here as JSON")
+    p.add_argument(
+        "--pixel-um",
+        type=float,
+        nargs=2,
+        default=PIXEL_UM,
+        metavar=("LO", "HI"),
+        help=f"pixel-size range in µm, drawn log-uniform (default {PIXEL_UM[0]} {PIXEL_UM[1]})",
+    )
     a = p.parse_args(argv)
     from fracto.modes.model import default_model_path, load_model, save_model, sha256_of
 
@@ -196,7 +222,7 @@ def main(argv: list[str] | None = None) -> int:
         path = a.model or default_model_path()
         model = load_model(path)
         label = f"{path} (sha256 {sha256_of(path)[:12]})"
-    d = evaluate(model, a.fields, a.n_boot)
+    d = evaluate(model, a.fields, a.n_boot, pixel_um=tuple(a.pixel_um))
     d["seconds"] = round(time.perf_counter() - t0, 1)
     d["model"] = label
     print(f"model: {label}")
