@@ -10,7 +10,7 @@ sizes from 5 to 150 px (log-uniform) and random mixtures of one to four modes,
 with randomised rendering. The truth is each field's pixel fraction of each
 mode (its label image).
 
-For every field and every interval construction it prints, per mode:
+For every interval construction it prints, per mode:
 
 - coverage: share of fields whose 95 % interval holds the true fraction
   (target 0.90 to 0.98);
@@ -21,7 +21,8 @@ Constructions: ``counted`` (no correction, block bootstrap only),
 ``pooled`` (correction, Dirichlet on the pooled confusion rows),
 ``image`` (correction, each row drawn from one held-out training image) and
 ``image+confidence`` (the same from the training images of nearest mean
-confidence).
+confidence). Then the coverage of ``image`` for the fields finer than, inside
+and coarser than the default model's training pixel sizes.
 
 With ``--train-fields N`` a model is trained in the bench on N fields of the
 default model's training seeds (quicker than the default build; saved with
@@ -164,6 +165,7 @@ def evaluate(
                 **f,
                 "truth": truth[i].tolist(),
                 **{c: est[c][i].tolist() for c in kinds},
+                "ci95": {c: [lo[c][i].tolist(), hi[c][i].tolist()] for c in kinds},
             }
             for i, f in enumerate(fields)
         ],
@@ -189,6 +191,33 @@ def format_results(d: dict) -> str:
                 f"{kind:<18}{m:<15}{v['coverage']:>9.3f}{v['mean_width']:>8.3f}"
                 f"{v['bias']:>+8.3f}{v['rmse']:>7.3f}{ok}"
             )
+    return "\n".join(lines)
+
+
+def format_by_pixel(d: dict, kind: str = "image") -> str:
+    """Coverage of one construction for fields finer than, inside and coarser than the
+    default model's training pixel sizes (:data:`fracto.modes.default_model.PIXEL_UM_RANGE`)."""
+    from fracto.modes.default_model import PIXEL_UM_RANGE
+
+    lo_px, hi_px = PIXEL_UM_RANGE
+    fields = d["fields"]
+    px = np.array([f["pixel_um"] for f in fields])
+    truth = np.array([f["truth"] for f in fields])
+    lo = np.array([f["ci95"][kind][0] for f in fields])
+    hi = np.array([f["ci95"][kind][1] for f in fields])
+    inside = (lo <= truth + 1e-9) & (truth <= hi + 1e-9)
+    modes = list(d["results"][kind])
+    lines = [f"coverage of '{kind}' by pixel size (training pixel sizes {lo_px}-{hi_px} µm)"]
+    lines.append(f"{'pixel size':<22}{'fields':>7}" + "".join(f"{m:>15}" for m in modes))
+    bands = [
+        (f"finer than {lo_px} µm", px < lo_px),
+        (f"{lo_px}-{hi_px} µm", (px >= lo_px) & (px <= hi_px)),
+        (f"coarser than {hi_px} µm", px > hi_px),
+    ]
+    for name, m in bands:
+        if m.any():
+            cov = inside[m].mean(axis=0)
+            lines.append(f"{name:<22}{int(m.sum()):>7}" + "".join(f"{c:>15.3f}" for c in cov))
     return "\n".join(lines)
 
 
@@ -227,6 +256,7 @@ def main(argv: list[str] | None = None) -> int:
     d["model"] = label
     print(f"model: {label}")
     print(format_results(d))
+    print(format_by_pixel(d))
     print(f"{d['seconds']} s in all")
     if a.json:
         from fracto.io.safe import write_json_atomic
