@@ -105,3 +105,24 @@ def test_worker_reuses_freed_arrays_under_a_fixed_trim_threshold():
     assert (changed_before, changed_after) == (0, 1)
     assert before >= 20 * 4
     assert after < 0.1 * before
+
+
+def test_model_facts_come_from_a_worker_and_a_bad_model_is_one_sentence(spec, tmp_path):
+    # The classes a worker reports are the saved model's own (skops round trip of
+    # the fitted estimator); the calling process loads nothing.
+    from fracto.errors import FractoInputError
+    from fracto.modes.model import load_model
+
+    model = load_model(spec.path)
+    runner._MODELS.clear()
+    with runner.Scorer(spec, jobs=2) as sc:
+        facts = sc.model_facts()
+    assert facts == runner.ModelFacts.of(model)
+    assert facts.classes == tuple(str(c) for c in model.classes_)
+    assert runner.fraction_names(facts) == runner.fraction_names(model)
+    assert runner._MODELS == {}
+    bad = tmp_path / "bad.skops"
+    bad.write_bytes(b"not a model")
+    bad_spec = runner.ModelSpec(sha256="0" * 64, path=str(bad))
+    with runner.Scorer(bad_spec, jobs=2) as sc, pytest.raises(FractoInputError):
+        sc.model_facts()

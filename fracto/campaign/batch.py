@@ -175,6 +175,7 @@ def run_batch(
     from fracto.campaign import summary as sm
     from fracto.campaign.manifest import duplicate_paths, load_campaign
     from fracto.campaign.runner import (
+        ModelFacts,
         ModelSpec,
         Scorer,
         ScoreTask,
@@ -268,11 +269,15 @@ def run_batch(
         new_ok: set[str] = set()
         scorer = Scorer(spec, jobs=min(jobs, len(tasks)) or 1, scheduler=scheduler, client=client)
         try:
-            if tasks:
-                scorer.start()  # workers start and load the model while this process does too
-            model = load_model(mpath, trust=trust)
-            remember_model(spec, model, hmodel)  # jobs=1 scores with these very objects
-            names = fraction_names(model)
+            if scorer.kind == "serial":
+                model = load_model(mpath, trust=trust)
+                remember_model(spec, model, hmodel)  # jobs=1 scores with these very objects
+                facts = ModelFacts.of(model)
+            else:
+                # the workers start and load the model; this process only asks one of
+                # them for the classes (loading it here too would slow their start)
+                facts = scorer.model_facts()
+            names = fraction_names(facts)
             for res in scorer.run(tasks):
                 t = meta[res["key"]]
                 if res["thumbnail"] is not None:
@@ -359,7 +364,7 @@ def run_batch(
         manifest=manifest,
         model_path=mpath,
         model_sha256=msha,
-        model=model,
+        model=facts,
         settings=settings,
         settings_hash=global_hash,
         seed=seed,

@@ -36,11 +36,15 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from fracto.campaign.values import cell_float_or_none as _num
 from fracto.io.safe import write_text_atomic
+
+if TYPE_CHECKING:
+    from fracto.campaign.runner import ModelFacts
 
 #: First columns of images.csv, in order.
 BASE_COLUMNS = ("path", "specimen", "temperature_C", "kind", "status", "error")
@@ -365,14 +369,18 @@ def provenance(
     manifest,
     model_path: str | Path,
     model_sha256: str,
-    model,
+    model: ModelFacts,
     settings: dict,
     settings_hash: str,
     seed: int,
     run: dict,
     counts: dict,
 ) -> dict:
-    """The provenance record of a batch (tool, model, settings, versions, caution)."""
+    """The provenance record of a batch (tool, model, settings, versions, caution).
+
+    `model` gives the classes and feature-set version of the model
+    (:class:`fracto.campaign.runner.ModelFacts`).
+    """
     import datetime as _dt
     import platform
 
@@ -394,8 +402,8 @@ def provenance(
         "model": {
             "path": str(model_path),
             "sha256": model_sha256,
-            "classes": [str(c) for c in model.classes_],
-            "feature_set_version": getattr(model, "feature_set_version_", None),
+            "classes": list(model.classes),
+            "feature_set_version": model.feature_set_version,
         },
         "settings": settings,
         "settings_hash": settings_hash,
