@@ -22,8 +22,12 @@ wall times): the whole :func:`fracto.campaign.runner.score_task` over ``--profil
 images, and its stages (reading, quality, region features, prediction, bootstrap and
 painting, striations, thumbnail) timed one by one on the same images.
 
+With ``--repeat R`` the runs of a pair alternate (1 worker, 2 workers, 1, 2, ...) R
+times and the medians are printed with each pair's overall ratio: on a shared machine
+one run's ratio moves by about ±0.2.
+
 Run: ``/root/venv/bin/python bench/bench_batch.py [--base 4] [--model PATH] [--keep DIR]
-[--profile 3] [--only-profile]``
+[--profile 3] [--only-profile] [--repeat 1]``
 The machine is shared with other work: the load average is printed beside the figures.
 """
 
@@ -185,6 +189,11 @@ def profile_stages(files: list[Path], model_path: str) -> None:
         print(f"    {k:<16} {v:6.3f} s  {v / tot:5.1%}")
 
 
+def _fmt(values: list[float]) -> str:
+    """The median of `values`, two decimals."""
+    return f"{float(np.median(values)):.2f}"
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--base", type=int, default=4, help="base images (4 files each)")
@@ -193,6 +202,9 @@ def main() -> None:
     ap.add_argument("--no-dask", action="store_true")
     ap.add_argument("--profile", type=int, default=3, help="images in the CPU profile")
     ap.add_argument("--only-profile", action="store_true")
+    ap.add_argument(
+        "--repeat", type=int, default=1, help="runs of each configuration, alternated (median)"
+    )
     a = ap.parse_args()
     from fracto.modes.model import default_model_path
 
@@ -227,30 +239,41 @@ def main() -> None:
         print()
     if a.only_profile:
         return
-    res = {}
-    res["jobs1"] = run("local --jobs 1", folder, model, jobs=1)
-    res["jobs2"] = run("local --jobs 2", folder, model, jobs=2)
+    # runs of one pair alternate (1 worker, 2 workers, 1, 2, ...) so that the drift of a
+    # shared machine falls on both alike; each pair's ratio is printed and their median
+    runs: dict[str, list[dict]] = {}
+    for _ in range(a.repeat):
+        runs.setdefault("jobs1", []).append(run("local --jobs 1", folder, model, jobs=1))
+        runs.setdefault("jobs2", []).append(run("local --jobs 2", folder, model, jobs=2))
     if not a.no_dask:
         from distributed import Client, LocalCluster
 
-        for w in (1, 2):
-            with (
-                LocalCluster(
-                    n_workers=w, threads_per_worker=1, processes=True, dashboard_address=None
-                ) as cl,
-                Client(cl) as c,
-            ):
-                res[f"dask{w}"] = run(f"LocalCluster {w} worker(s)", folder, model, client=c)
+        for _ in range(a.repeat):
+            for w in (1, 2):
+                with (
+                    LocalCluster(
+                        n_workers=w, threads_per_worker=1, processes=True, dashboard_address=None
+                    ) as cl,
+                    Client(cl) as c,
+                ):
+                    label = f"LocalCluster {w} worker(s)"
+                    runs.setdefault(f"dask{w}", []).append(run(label, folder, model, client=c))
     print()
+    ips2 = [r["ips"] for r in runs["jobs2"]]
+    st2 = [r["steady"] for r in runs["jobs2"]]
     print(
-        f"target: >= 2 images/s with --jobs 2: overall {res['jobs2']['ips']:.2f}, "
-        f"steady {res['jobs2']['steady']:.2f}"
+        f"target: >= 2 images/s with --jobs 2: overall {_fmt(ips2)}, steady {_fmt(st2)}"
+        + (" (median of the runs)" if a.repeat > 1 else "")
     )
     for a1, a2, name in (("jobs1", "jobs2", "local"), ("dask1", "dask2", "LocalCluster")):
-        if a1 in res and a2 in res:
+        if a1 in runs and a2 in runs:
+            pairs = list(zip(runs[a1], runs[a2], strict=True))
+            over = [r2["ips"] / r1["ips"] for r1, r2 in pairs]
+            steady = [r2["steady"] / r1["steady"] for r1, r2 in pairs]
             print(
-                f"{name}: 2 workers / 1 worker = {res[a2]['ips'] / res[a1]['ips']:.2f} overall, "
-                f"{res[a2]['steady'] / res[a1]['steady']:.2f} steady (target >= 1.8)"
+                f"{name}: 2 workers / 1 worker = {_fmt(over)} overall, {_fmt(steady)} steady "
+                "(target >= 1.8)"
+                + (f"; runs {', '.join(f'{v:.2f}' for v in over)} overall" if a.repeat > 1 else "")
             )
     if tmp is not None:
         tmp.cleanup()
