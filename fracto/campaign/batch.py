@@ -175,7 +175,6 @@ def run_batch(
     from fracto.campaign import summary as sm
     from fracto.campaign.manifest import duplicate_paths, load_campaign
     from fracto.campaign.runner import (
-        ModelFacts,
         ModelSpec,
         Scorer,
         ScoreTask,
@@ -270,13 +269,11 @@ def run_batch(
         scorer = Scorer(spec, jobs=min(jobs, len(tasks)) or 1, scheduler=scheduler, client=client)
         try:
             if scorer.kind == "serial":
-                model = load_model(mpath, trust=trust)
-                remember_model(spec, model, hmodel)  # jobs=1 scores with these very objects
-                facts = ModelFacts.of(model)
-            else:
-                # the workers start and load the model; this process only asks one of
-                # them for the classes (loading it here too would slow their start)
-                facts = scorer.model_facts()
+                # jobs=1 scores in this process with these very objects
+                remember_model(spec, load_model(mpath, trust=trust), hmodel)
+            # with workers, one of them tells the classes: loading the model here too
+            # would slow their start
+            facts = scorer.model_facts()
             names = fraction_names(facts)
             for res in scorer.run(tasks):
                 t = meta[res["key"]]

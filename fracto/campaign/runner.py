@@ -327,8 +327,7 @@ def fraction_names(model) -> tuple[str, ...]:
 
     `model` is a fitted model or its :class:`ModelFacts`.
     """
-    facts = model if isinstance(model, ModelFacts) else ModelFacts.of(model)
-    classes = list(facts.classes)
+    classes = (model if isinstance(model, ModelFacts) else ModelFacts.of(model)).classes
     return (*MODES, *[c for c in classes if c not in MODES], UNCLASSIFIED)
 
 
