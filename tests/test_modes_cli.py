@@ -287,3 +287,19 @@ def test_train_card_holds_the_held_out_contract(tmp_path, capsys):
     cm = np.array(area["area_confusion"])
     assert cm.shape == (2, 2) and area["labels"] == ["intergranular", "ductile"]
     assert card["held_out_permutation_importance"]["top"]
+
+
+def test_legend_shows_the_map_share_beside_the_corrected_fraction():
+    # The painted map holds the counted labels; with a correction the legend names
+    # both, so it never disagrees with the picture (percent rounding as Python's
+    # format spec, no other source).
+    from fracto.modes.overlay import legend_labels
+
+    classes = ("intergranular", "transgranular")
+    corrected = {"intergranular": 1.0, "transgranular": 0.0, "unclassified": 0.0}
+    mapped = {"intergranular": 0.882, "transgranular": 0.007, "unclassified": 0.111}
+    both = legend_labels(classes, corrected, mapped)
+    assert both["intergranular"] == "intergranular 88% of map, 100% corrected"
+    assert both["unclassified"] == "unclassified 11% of map, 0% corrected"
+    assert legend_labels(classes, mapped)["transgranular"] == "transgranular 1%"
+    assert legend_labels(classes)["intergranular"] == "intergranular"

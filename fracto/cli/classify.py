@@ -265,7 +265,11 @@ def command(
         conf = None
         if overlay_confidence:
             conf = paint(res.block_probabilities.max(axis=2), res.features.block_px, view.shape)
-        note = "corrected fractions" if d["correction"].get("applied") else "counted fractions"
+        corrected = bool(d["correction"].get("applied"))
+        note = "corrected fractions" if corrected else "counted fractions"
+        mapped = (
+            {k: v["value"] for k, v in d["fractions_uncorrected"].items()} if corrected else None
+        )
         write_overlay(
             overlay,
             view,
@@ -275,6 +279,7 @@ def command(
             title=str(image),
             confidence=conf,
             fractions_note=note,
+            map_fractions=mapped,
         )
     if labels:
         write_labels(labels, res.label_map, res.classes)

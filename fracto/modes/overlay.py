@@ -59,6 +59,7 @@ def overlay_png(
     max_side_px: int = 1600,
     confidence: np.ndarray | None = None,
     fractions_note: str | None = None,
+    map_fractions: dict[str, float] | None = None,
 ) -> bytes:
     """PNG bytes of the grey image with translucent mode colours and a legend.
 
@@ -82,6 +83,10 @@ def overlay_png(
         certainty, and the legend shows three levels.
     fractions_note : str, optional
         Legend subtitle for the fractions (e.g. "corrected fractions").
+    map_fractions : dict, optional
+        Share of the painted map in each class, shown beside `fractions` when
+        those differ from it (corrected fractions), so the legend agrees with
+        the picture; see :func:`legend_labels`.
     """
     import matplotlib
 
@@ -114,18 +119,16 @@ def overlay_png(
             rgb[sel] = (1 - a) * rgb[sel] + a * np.asarray(to_rgb(cols[c]))
     ny, nx = grey.shape
     dpi = 100
-    fig = Figure(figsize=(nx / dpi + 2.6, max(ny / dpi, 2.0) + 0.4), dpi=dpi)
+    side = 2.6 if map_fractions is None else 3.6  # inches of legend column
+    fig = Figure(figsize=(nx / dpi + side, max(ny / dpi, 2.0) + 0.4), dpi=dpi)
     FigureCanvasAgg(fig)
-    ax = fig.add_axes((0.0, 0.0, nx / dpi / (nx / dpi + 2.6), 1.0 - 0.4 / (ny / dpi + 0.4)))
+    ax = fig.add_axes((0.0, 0.0, nx / dpi / (nx / dpi + side), 1.0 - 0.4 / (ny / dpi + 0.4)))
     ax.imshow(rgb, interpolation="nearest")
     ax.set_axis_off()
-    handles = []
-    for c in classes:
-        share = f" {fractions[c]:.0%}" if fractions and c in fractions else ""
-        handles.append(Patch(facecolor=cols[c], edgecolor="black", label=f"{c}{share}"))
-    share = f" {fractions[UNCLASSIFIED]:.0%}" if fractions and UNCLASSIFIED in fractions else ""
+    labels = legend_labels(classes, fractions, map_fractions)
+    handles = [Patch(facecolor=cols[c], edgecolor="black", label=labels[c]) for c in classes]
     handles.append(
-        Patch(facecolor="#bbbbbb", edgecolor="black", hatch="//", label=f"{UNCLASSIFIED}{share}")
+        Patch(facecolor="#bbbbbb", edgecolor="black", hatch="//", label=labels[UNCLASSIFIED])
     )
     if a_map is not None:
         grey = np.array([0.6, 0.6, 0.6])
@@ -143,6 +146,29 @@ def overlay_png(
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
     return buf.getvalue()
+
+
+def legend_labels(
+    classes: Sequence[str],
+    fractions: dict[str, float] | None = None,
+    map_fractions: dict[str, float] | None = None,
+) -> dict[str, str]:
+    """Legend text of each class and of ``unclassified``.
+
+    ``"name 40%"`` with `fractions` alone; with `map_fractions` too,
+    ``"name 35% of map, 40% corrected"``.
+    """
+    out = {}
+    for c in (*classes, UNCLASSIFIED):
+        if fractions and c in fractions:
+            if map_fractions is not None:
+                share = f" {map_fractions.get(c, 0.0):.0%} of map, {fractions[c]:.0%} corrected"
+            else:
+                share = f" {fractions[c]:.0%}"
+        else:
+            share = ""
+        out[c] = f"{c}{share}"
+    return out
 
 
 def write_overlay(path: str | os.PathLike, *args, **kwargs) -> None:
